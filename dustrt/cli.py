@@ -1,0 +1,228 @@
+"""The ``dustrt`` command.  It parses, loads the scenario, calls one library
+function, and writes; it holds no physics.  Heavy modules are imported inside
+the subcommand handlers so that ``dustrt --help`` is instant.
+
+Exit codes: 0 success, 2 bad input (scenario, data file or option), 1 other.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+DEMO = "demo"
+
+
+def _demo_path() -> Path:
+    from importlib import resources
+
+    return Path(str(resources.files("dustrt") / "data" / "demo_scenario.toml"))
+
+
+def _load(path):
+    from dustrt.config import load_scenario
+
+    return load_scenario(_demo_path() if path in (None, DEMO) else path)
+
+
+def _say(args, message: str) -> None:
+    if not getattr(args, "quiet", False):
+        print(message, file=sys.stderr)
+
+
+def _cmd_optics(args) -> int:
+    from dustrt import io
+    from dustrt.optics import optics_dataset
+
+    sc = _load(args.scenario)
+    ds = optics_dataset(sc.populations, sc.wavelength_nm, sc.scattering_angle_deg,
+                        sc.optics_relative_tolerance,
+                        progress=lambda name: _say(args, f"optics: population {name!r}"))
+    ds.attrs["scenario"] = sc.text
+    ds.attrs["scenario_source"] = sc.source
+    io.write_netcdf(ds, args.output)
+    _say(args, f"wrote {args.output}")
+    if args.plot:
+        from dustrt import plots
+
+        io.save_figure(plots.optics_figure(ds), args.plot)
+        _say(args, f"wrote {args.plot}")
+    return 0
+
+
+def _cmd_limb(args) -> int:
+    from dustrt import io
+    from dustrt.forward import limb_dataset
+
+    sc = _load(args.scenario)
+    ds = limb_dataset(sc, progress=not args.quiet)
+    io.write_netcdf(ds, args.output)
+    _say(args, f"wrote {args.output}")
+    if args.plot:
+        from dustrt import plots
+
+        io.save_figure(plots.limb_figure(ds), args.plot)
+        _say(args, f"wrote {args.plot}")
+    return 0
+
+
+def _cmd_observe(args) -> int:
+    from dustrt import io
+    from dustrt.observe import observation_dataset
+
+    sc = _load(args.scenario)
+    ds = observation_dataset(sc, realizations=args.realizations, seed=args.seed, progress=not args.quiet)
+    io.write_netcdf(ds, args.output)
+    _say(args, f"wrote {args.output}")
+    return 0
+
+
+def _cmd_separate(args) -> int:
+    from dustrt import io
+    from dustrt.separate import separate_file
+
+    sc = _load(args.scenario)
+    ds = separate_file(args.observation, sc, progress=not args.quiet)
+    io.write_netcdf(ds, args.output)
+    _say(args, f"wrote {args.output}")
+    if args.plot:
+        from dustrt import plots
+
+        io.save_figure(plots.separation_figure(ds), args.plot)
+        _say(args, f"wrote {args.plot}")
+    return 0
+
+
+def _cmd_limit(args) -> int:
+    from dustrt import io
+    from dustrt.limits import limits_file
+
+    sc = _load(args.scenario)
+    ds = limits_file(args.observation, sc, method=args.method, progress=not args.quiet)
+    io.write_netcdf(ds, args.output)
+    _say(args, f"wrote {args.output}")
+    if args.plot:
+        from dustrt import plots
+
+        io.save_figure(plots.limits_figure(ds), args.plot)
+        _say(args, f"wrote {args.plot}")
+    return 0
+
+
+def _cmd_sweep(args) -> int:
+    from dustrt import io
+    from dustrt.sweep import run_sweep
+
+    sc = _load(args.scenario)
+    ds = run_sweep(sc, args.output, scheduler=args.scheduler, workers=args.workers,
+                   resume=args.resume, progress=not args.quiet)
+    _say(args, f"wrote {args.output}")
+    if args.plot:
+        from dustrt import plots
+
+        io.save_figure(plots.sweep_figure(ds), args.plot)
+        _say(args, f"wrote {args.plot}")
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="dustrt",
+        description="Forward radiative transfer of sunlight scattered by fine dust above the lunar limb: "
+                    "grain optics, limb radiance, zodiacal light, instrument noise, dust/zodiacal "
+                    "separation, upper limits and detectability sweeps. SCENARIO is a TOML file; "
+                    "'demo' (the default where optional) is the packaged demo scenario of an invented orbiter.",
+        epilog="Predictions are model results for science planning, not environmental specifications.",
+    )
+    from dustrt import __version__
+
+    parser.add_argument("--version", action="version", version=f"dustrt {__version__}")
+    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    def common(p):
+        p.add_argument("-q", "--quiet", action="store_true", help="no progress or status messages")
+
+    p = sub.add_parser("optics", help="size-averaged Mie optics of the scenario's grain populations",
+                       description="Compute cross sections, albedo, asymmetry parameter, phase function and "
+                                   "polarisation of each [[population]] on the scenario's wavelength and "
+                                   "angle grids, and write them to netCDF.")
+    p.add_argument("scenario", nargs="?", default=DEMO, metavar="SCENARIO", help="scenario TOML (default: demo)")
+    p.add_argument("-o", "--output", required=True, metavar="OUT.nc", help="netCDF file to write")
+    p.add_argument("--plot", metavar="FILE.png", help="also draw cross sections and phase functions")
+    common(p)
+    p.set_defaults(func=_cmd_optics)
+
+    p = sub.add_parser("limb", help="limb radiance of the hypothesised dust (the main job)",
+                       description="Integrate the sunlit dust columns along each line of sight and form the "
+                                   "spectral radiance per population and in total.")
+    p.add_argument("scenario", nargs="?", default=DEMO, metavar="SCENARIO", help="scenario TOML (default: demo)")
+    p.add_argument("-o", "--output", required=True, metavar="OUT.nc", help="netCDF file to write")
+    p.add_argument("--plot", metavar="FILE.png", help="also draw limb profiles and spectra")
+    common(p)
+    p.set_defaults(func=_cmd_limb)
+
+    p = sub.add_parser("observe", help="simulated calibrated observations (expected and noisy)",
+                       description="Dust + zodiacal light through the [instrument]: expected counts, noise and, "
+                                   "with --realizations, noisy calibrated spectra.")
+    p.add_argument("scenario", nargs="?", default=DEMO, metavar="SCENARIO", help="scenario TOML (default: demo)")
+    p.add_argument("-o", "--output", required=True, metavar="OBS.nc", help="netCDF file to write")
+    p.add_argument("--realizations", type=int, default=0, metavar="N",
+                   help="number of noisy realisations (0: expected values only)")
+    p.add_argument("--seed", type=int, default=None, metavar="S", help="random seed (reproducible noise)")
+    common(p)
+    p.set_defaults(func=_cmd_observe)
+
+    p = sub.add_parser("separate", help="separate dust from zodiacal light by colour",
+                       description="Fit each observed spectrum with zodiacal light plus the dust template of "
+                                   "each hypothesised population (weighted least squares).")
+    p.add_argument("observation", metavar="OBS.nc", help="calibrated observation file")
+    p.add_argument("--scenario", required=True, metavar="SCENARIO", help="scenario TOML with the hypotheses")
+    p.add_argument("-o", "--output", required=True, metavar="RESULT.nc", help="netCDF file to write")
+    p.add_argument("--plot", metavar="FILE.png", help="also draw data, components and residuals")
+    common(p)
+    p.set_defaults(func=_cmd_separate)
+
+    p = sub.add_parser("limit", help="upper limits on grain density from a non-detection",
+                       description="Feldman-Cousins (default) or flat-prior Bayesian limits on each population's "
+                                   "density normalisation, per observation and joint.")
+    p.add_argument("observation", metavar="OBS.nc", help="calibrated observation file")
+    p.add_argument("--scenario", required=True, metavar="SCENARIO", help="scenario TOML with the hypotheses")
+    p.add_argument("-o", "--output", required=True, metavar="LIMITS.nc", help="netCDF file to write")
+    p.add_argument("--method", choices=("feldman-cousins", "bayesian-flat"), default=None,
+                   help="interval construction (default: the scenario's [limits] method)")
+    p.add_argument("--plot", metavar="FILE.png", help="also draw the limit vs grain radius")
+    common(p)
+    p.set_defaults(func=_cmd_limit)
+
+    p = sub.add_parser("sweep", help="minimum detectable density over a parameter grid",
+                       description="Sweep grain radius and/or any numeric scenario key ([sweep] table) and "
+                                   "compute the minimum detectable density, in chunks on dask.")
+    p.add_argument("scenario", metavar="SCENARIO", help="scenario TOML with a [sweep] table")
+    p.add_argument("-o", "--output", required=True, metavar="SWEEP.nc", help="netCDF file to write")
+    p.add_argument("--plot", metavar="FILE.png", help="also draw the minimum detectable density")
+    g = p.add_mutually_exclusive_group()
+    g.add_argument("--scheduler", metavar="ADDRESS", help="address of an existing dask.distributed scheduler")
+    g.add_argument("--workers", type=int, metavar="N", help="local cluster size (default: serial in-process)")
+    p.add_argument("--resume", action="store_true", help="reuse finished chunks of an interrupted sweep")
+    common(p)
+    p.set_defaults(func=_cmd_sweep)
+    return parser
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return args.func(args)
+    except (ValueError, OSError) as exc:
+        # bad input: scenario/data validation errors are ValueErrors with file and key
+        print(f"dustrt {args.command}: error: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("dustrt: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,726 @@
+"""Scenario files: TOML → validated, frozen dataclasses, in one place.
+
+Every error is a :class:`ScenarioError` naming the file, the key (a dotted
+path such as ``population[0].size.sigma_g``) and what is allowed.  Relative
+file paths inside a scenario are relative to the scenario file.
+
+The tables and keys are documented in ``dustrt/data/scenario_reference.toml``,
+a fully commented scenario shipped with the package.
+"""
+
+from __future__ import annotations
+
+import copy
+import math
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+MOON_RADIUS_KM = 1737.4  # IAU mean radius
+
+
+class ScenarioError(ValueError):
+    """A scenario file is invalid; the message names file, key and what is allowed."""
+
+
+# ---------------------------------------------------------------- validation helpers
+
+
+class _Table:
+    """A TOML table being read: tracks used keys so unknown ones can be rejected."""
+
+    def __init__(self, data: dict, key: str, source: str, base_dir: Path):
+        self.data = data
+        self.key = key
+        self.source = source
+        self.base_dir = base_dir
+        self.used: set[str] = set()
+
+    def error(self, subkey: str | None, message: str) -> ScenarioError:
+        where = self.key if subkey is None else (f"{self.key}.{subkey}" if self.key else subkey)
+        return ScenarioError(f"{self.source}: key '{where}': {message}")
+
+    def has(self, name: str) -> bool:
+        return name in self.data
+
+    def raw(self, name: str, default: Any = None) -> Any:
+        self.used.add(name)
+        return self.data.get(name, default)
+
+    def number(self, name, default=None, *, low=-math.inf, high=math.inf, low_open=False,
+               high_open=False, integer=False) -> float | None:
+        self.used.add(name)
+        if name not in self.data:
+            if default is _REQUIRED:
+                raise self.error(name, f"is required ({_range_text(low, high, low_open, high_open)})")
+            return default
+        v = self.data[name]
+        if isinstance(v, bool) or not isinstance(v, (int, float)):
+            raise self.error(name, f"must be a number, got {type(v).__name__} {v!r}")
+        if integer and (isinstance(v, float) and not v.is_integer()):
+            raise self.error(name, f"must be an integer, got {v!r}")
+        v = int(v) if integer else float(v)
+        ok = math.isfinite(v) and (v > low if low_open else v >= low) and (
+            v < high if high_open else v <= high)
+        if not ok:
+            raise self.error(name, f"must lie in {_range_text(low, high, low_open, high_open)}, got {v!r}")
+        return v
+
+    def boolean(self, name, default) -> bool:
+        self.used.add(name)
+        v = self.data.get(name, default)
+        if not isinstance(v, bool):
+            raise self.error(name, f"must be true or false, got {v!r}")
+        return v
+
+    def string(self, name, default=None, choices=None) -> str | None:
+        self.used.add(name)
+        if name not in self.data:
+            if default is _REQUIRED:
+                raise self.error(name, "is required" + (f" (one of {', '.join(choices)})" if choices else ""))
+            return default
+        v = self.data[name]
+        if not isinstance(v, str):
+            raise self.error(name, f"must be a string, got {v!r}")
+        if choices is not None and v not in choices:
+            raise self.error(name, f"must be one of {', '.join(repr(c) for c in choices)}, got {v!r}")
+        return v
+
+    def number_list(self, name, *, low=-math.inf, high=math.inf, low_open=False, min_len=1):
+        self.used.add(name)
+        v = self.data[name]
+        if not isinstance(v, list) or len(v) < min_len or any(
+                isinstance(x, bool) or not isinstance(x, (int, float)) for x in v):
+            raise self.error(name, f"must be a list of at least {min_len} number(s), got {v!r}")
+        arr = np.asarray(v, dtype=float)
+        bad = ~np.isfinite(arr) | ((arr <= low) if low_open else (arr < low)) | (arr > high)
+        if np.any(bad):
+            raise self.error(name, f"values must lie in {_range_text(low, high, low_open, False)}, "
+                                   f"got {arr[bad][0]!r}")
+        return arr
+
+    def subtable(self, name, required=False) -> "_Table | None":
+        self.used.add(name)
+        if name not in self.data:
+            if required:
+                raise self.error(name, "is required (a table)")
+            return None
+        v = self.data[name]
+        if not isinstance(v, dict):
+            raise self.error(name, f"must be a table, got {v!r}")
+        return _Table(v, f"{self.key}.{name}" if self.key else name, self.source, self.base_dir)
+
+    def path(self, name) -> Path:
+        v = self.string(name, _REQUIRED)
+        p = Path(v)
+        if not p.is_absolute():
+            p = self.base_dir / p
+        if not p.is_file():
+            raise self.error(name, f"file not found: {p}")
+        return p
+
+    def finish(self, allowed_hint: str | None = None) -> None:
+        unknown = sorted(set(self.data) - self.used)
+        if unknown:
+            known = allowed_hint or ", ".join(sorted(self.used))
+            raise self.error(unknown[0], f"unknown key; allowed keys here: {known}")
+
+
+class _Required:
+    def __repr__(self):
+        return "REQUIRED"
+
+
+_REQUIRED = _Required()
+
+
+def _range_text(low, high, low_open, high_open) -> str:
+    lo = "(" if low_open else "["
+    hi = ")" if high_open else "]"
+    return f"{lo}{low:g}, {high:g}{hi}"
+
+
+def _grid(table: _Table, name: str, *, low, high, low_open=False, integer_num=True) -> np.ndarray:
+    """A list of numbers, or {start, stop, num} (linear) / {start, stop, step}."""
+    v = table.raw(name)
+    if isinstance(v, list):
+        return table.number_list(name, low=low, high=high, low_open=low_open)
+    if isinstance(v, dict):
+        sub = _Table(v, f"{table.key}.{name}" if table.key else name, table.source, table.base_dir)
+        start = sub.number("start", _REQUIRED, low=low, high=high, low_open=low_open)
+        stop = sub.number("stop", _REQUIRED, low=low, high=high, low_open=low_open)
+        spacing = sub.string("spacing", "linear", choices=("linear", "log"))
+        if sub.has("step"):
+            step = sub.number("step", _REQUIRED, low=0, low_open=True)
+            sub.finish("start, stop, step, spacing")
+            n = int(math.floor((stop - start) / step + 1e-9)) + 1
+            if n < 1:
+                raise sub.error("stop", "must be >= start")
+            return start + step * np.arange(n)
+        num = sub.number("num", _REQUIRED, low=1, high=1e6, integer=True)
+        sub.finish("start, stop, num (or step), spacing")
+        if spacing == "log":
+            if start <= 0 or stop <= 0:
+                raise sub.error("start", "log spacing needs start and stop > 0")
+            return np.geomspace(start, stop, num)
+        return np.linspace(start, stop, num)
+    raise table.error(name, f"must be a list of numbers or a table {{start, stop, num}}, got {v!r}")
+
+
+# ---------------------------------------------------------------- scenario dataclasses
+
+
+@dataclass(frozen=True)
+class Population:
+    name: str
+    material: Any  # dustrt.materials.Material
+    size: Any  # dustrt.sizes distribution
+    density: Any = None  # dustrt.density profile
+
+
+@dataclass(frozen=True)
+class Observer:
+    altitude_km: float
+    latitude_deg: float
+    local_time_h: float
+
+
+@dataclass(frozen=True)
+class View:
+    tangent_altitudes_km: np.ndarray | None
+    azimuth_deg: float
+    directions: np.ndarray | None  # (L, 3) unit vectors, when given explicitly
+
+
+@dataclass(frozen=True)
+class Integration:
+    top_altitude_km: float = 300.0
+    relative_tolerance: float = 1e-4
+    extinction: bool = True
+
+
+@dataclass(frozen=True)
+class Background:
+    zodiacal_light: bool = True
+    zodiacal_scale: float = 1.0
+    dark_surface_radiance_factor: float = 0.0
+
+
+@dataclass(frozen=True)
+class Separation:
+    blue_band_nm: tuple[float, float] = (380.0, 450.0)
+    red_band_nm: tuple[float, float] = (600.0, 700.0)
+    fit_bands_nm: tuple = ()
+    mask_nm: tuple = ()
+    free_colour_slope: bool = False
+
+
+@dataclass(frozen=True)
+class Limits:
+    confidence: float = 0.95
+    method: str = "feldman-cousins"
+
+
+@dataclass(frozen=True)
+class Sweep:
+    axes: tuple  # ((key, values ndarray), ...)
+    detection_sigma: float = 5.0
+    chunk_size: int = 0  # 0: automatic
+
+
+@dataclass(frozen=True)
+class Scenario:
+    """A validated scenario.  ``raw`` is the parsed TOML (for sweeps and provenance)."""
+
+    source: str
+    text: str
+    raw: dict = field(repr=False)
+    base_dir: Path
+    wavelength_nm: np.ndarray
+    scattering_angle_deg: np.ndarray
+    optics_relative_tolerance: float
+    populations: tuple
+    body_radius_km: float = MOON_RADIUS_KM
+    sun_distance_au: float = 1.0
+    solar_spectrum: str | Path = "builtin"
+    observer: Observer | None = None
+    view: View | None = None
+    integration: Integration = Integration()
+    background: Background = Background()
+    instrument: Any = None
+    separation: Separation = Separation()
+    limits: Limits = Limits()
+    sweep: Sweep | None = None
+
+    def population(self, name: str) -> Population:
+        for p in self.populations:
+            if p.name == name:
+                return p
+        raise KeyError(name)
+
+    def require_limb(self) -> None:
+        """Raise unless the tables the limb model needs are present."""
+        missing = [t for t, v in (("observer", self.observer), ("view", self.view)) if v is None]
+        if missing:
+            raise ScenarioError(f"{self.source}: key '{missing[0]}': table is required for the limb model")
+        for i, p in enumerate(self.populations):
+            if p.density is None:
+                raise ScenarioError(
+                    f"{self.source}: key 'population[{i}].density': is required for the limb model "
+                    "(profile = exponential | power-law | terminator | table)")
+
+    def require_instrument(self) -> None:
+        if self.instrument is None:
+            raise ScenarioError(f"{self.source}: key 'instrument': table is required for this command")
+
+
+TOP_LEVEL = ("wavelengths", "optics", "population", "body", "sun", "observer", "view",
+             "integration", "background", "instrument", "separation", "limits", "sweep")
+
+
+def load_scenario(path: str | Path) -> Scenario:
+    """Read and validate a scenario TOML file."""
+    path = Path(path)
+    if not path.is_file():
+        raise ScenarioError(f"{path}: scenario file not found")
+    text = path.read_text()
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ScenarioError(f"{path}: not valid TOML: {exc}") from None
+    return scenario_from_dict(raw, source=str(path), base_dir=path.parent.resolve(), text=text)
+
+
+def scenario_from_dict(raw: dict, source: str = "<scenario>", base_dir: Path | None = None,
+                       text: str = "") -> Scenario:
+    """Validate an already-parsed scenario dictionary."""
+    base_dir = Path(base_dir or Path.cwd())
+    top = _Table(raw, "", source, base_dir)
+
+    wl_t = top.subtable("wavelengths", required=True)
+    if wl_t.has("values_nm"):
+        wavelength = wl_t.number_list("values_nm", low=100.0, high=5000.0)
+        wl_t.finish("values_nm, or start_nm, stop_nm, step_nm")
+    else:
+        start = wl_t.number("start_nm", _REQUIRED, low=100.0, high=5000.0)
+        stop = wl_t.number("stop_nm", _REQUIRED, low=100.0, high=5000.0)
+        step = wl_t.number("step_nm", _REQUIRED, low=0.0, high=1000.0, low_open=True)
+        wl_t.finish("values_nm, or start_nm, stop_nm, step_nm")
+        if stop < start:
+            raise wl_t.error("stop_nm", f"must be >= start_nm ({start:g})")
+        n = int(math.floor((stop - start) / step + 1e-9)) + 1
+        if n > 100000:
+            raise wl_t.error("step_nm", "gives more than 100000 wavelengths")
+        wavelength = start + step * np.arange(n)
+    if np.any(np.diff(wavelength) <= 0):
+        raise wl_t.error("values_nm", "must be strictly increasing")
+
+    opt_t = top.subtable("optics")
+    angles = np.arange(0.0, 181.0, 1.0)
+    optics_rtol = 1e-4
+    if opt_t is not None:
+        if opt_t.has("scattering_angles_deg"):
+            angles = opt_t.number_list("scattering_angles_deg", low=0.0, high=180.0)
+            if np.any(np.diff(angles) <= 0):
+                raise opt_t.error("scattering_angles_deg", "must be strictly increasing")
+        optics_rtol = opt_t.number("relative_tolerance", 1e-4, low=1e-10, high=0.1)
+        opt_t.finish("scattering_angles_deg, relative_tolerance")
+
+    pops_raw = top.raw("population")
+    if not isinstance(pops_raw, list) or not pops_raw or not all(isinstance(p, dict) for p in pops_raw):
+        raise top.error("population", "at least one [[population]] table is required")
+    populations = []
+    for i, p in enumerate(pops_raw):
+        populations.append(_population(_Table(p, f"population[{i}]", source, base_dir)))
+    names = [p.name for p in populations]
+    if len(set(names)) != len(names):
+        raise top.error("population", f"population names must be unique, got {names}")
+
+    kwargs: dict[str, Any] = {}
+    body = top.subtable("body")
+    if body is not None:
+        kwargs["body_radius_km"] = body.number("radius_km", MOON_RADIUS_KM, low=1.0, high=1e5)
+        body.finish("radius_km")
+    radius = kwargs.get("body_radius_km", MOON_RADIUS_KM)
+
+    sun = top.subtable("sun")
+    if sun is not None:
+        kwargs["sun_distance_au"] = sun.number("distance_au", 1.0, low=0.05, high=50.0)
+        spec = sun.string("spectrum", "builtin")
+        kwargs["solar_spectrum"] = spec if spec == "builtin" else sun.path("spectrum")
+        sun.finish("distance_au, spectrum")
+
+    obs = top.subtable("observer")
+    if obs is not None:
+        kwargs["observer"] = _observer(obs)
+    view = top.subtable("view")
+    if view is not None:
+        kwargs["view"] = _view(view, kwargs.get("observer"))
+
+    integ = top.subtable("integration")
+    if integ is not None:
+        kwargs["integration"] = Integration(
+            top_altitude_km=integ.number("top_altitude_km", 300.0, low=0.0, high=1e5, low_open=True),
+            relative_tolerance=integ.number("relative_tolerance", 1e-4, low=1e-10, high=0.1),
+            extinction=integ.boolean("extinction", True),
+        )
+        integ.finish("top_altitude_km, relative_tolerance, extinction")
+
+    bg = top.subtable("background")
+    if bg is not None:
+        kwargs["background"] = Background(
+            zodiacal_light=bg.boolean("zodiacal_light", True),
+            zodiacal_scale=bg.number("zodiacal_scale", 1.0, low=0.0, high=100.0),
+            dark_surface_radiance_factor=bg.number("dark_surface_radiance_factor", 0.0, low=0.0, high=1.0),
+        )
+        bg.finish("zodiacal_light, zodiacal_scale, dark_surface_radiance_factor")
+
+    inst = top.subtable("instrument")
+    if inst is not None:
+        kwargs["instrument"] = _instrument(inst)
+
+    sep = top.subtable("separation")
+    if sep is not None:
+        kwargs["separation"] = _separation(sep)
+
+    lim = top.subtable("limits")
+    if lim is not None:
+        kwargs["limits"] = Limits(
+            confidence=lim.number("confidence", 0.95, low=0.5, high=0.9999),
+            method=lim.string("method", "feldman-cousins", choices=("feldman-cousins", "bayesian-flat")),
+        )
+        lim.finish("confidence, method")
+
+    sw = top.subtable("sweep")
+    if sw is not None:
+        kwargs["sweep"] = _sweep(sw, raw)
+
+    top.finish(", ".join(TOP_LEVEL))
+    scenario = Scenario(source=source, text=text, raw=raw, base_dir=base_dir, wavelength_nm=wavelength,
+                        scattering_angle_deg=angles, optics_relative_tolerance=optics_rtol,
+                        populations=tuple(populations), **kwargs)
+    if scenario.observer is not None and scenario.observer.altitude_km <= 0:
+        raise top.error("observer.altitude_km", "must be above the surface (> 0)")
+    _check_view_against_observer(scenario, top)
+    del radius
+    return scenario
+
+
+def _population(t: _Table) -> Population:
+    from dustrt import materials, sizes
+
+    name = t.string("name", _REQUIRED)
+    if not name or not name.replace("_", "").replace("-", "").isalnum():
+        raise t.error("name", f"must be a non-empty name of letters, digits, '-' or '_', got {name!r}")
+
+    mat_raw = t.raw("material")
+    if mat_raw is None:
+        raise t.error("material", "is required: a built-in name, {n, k}, or {table = 'file.csv'}")
+    if isinstance(mat_raw, str):
+        try:
+            material = materials.builtin_material(mat_raw)
+        except ValueError as exc:
+            raise t.error("material", str(exc)) from None
+    elif isinstance(mat_raw, dict):
+        mt = t.subtable("material")
+        if mt.has("table"):
+            p = mt.path("table")
+            mt.finish("table (or n, k)")
+            try:
+                material = materials.read_material_csv(p)
+            except ValueError as exc:
+                raise mt.error("table", str(exc)) from None
+        else:
+            n = mt.number("n", _REQUIRED, low=0.0, high=10.0, low_open=True)
+            k = mt.number("k", 0.0, low=0.0, high=10.0)
+            mt.finish("n, k (or table)")
+            material = materials.constant_material(n, k)
+    else:
+        raise t.error("material", f"must be a built-in name or a table, got {mat_raw!r}")
+
+    st = t.subtable("size", required=True)
+    kind = st.string("distribution", _REQUIRED, choices=tuple(sizes.DISTRIBUTIONS))
+    try:
+        if kind == "monodisperse":
+            size = sizes.Monodisperse(st.number("radius_um", _REQUIRED, low=1e-4, high=1e3))
+            st.finish("distribution, radius_um")
+        elif kind == "lognormal":
+            size = sizes.LogNormal(
+                st.number("median_radius_um", _REQUIRED, low=1e-4, high=1e3),
+                st.number("sigma_g", _REQUIRED, low=1.0, high=10.0, low_open=True),
+                st.number("min_radius_um", None, low=1e-4, high=1e3),
+                st.number("max_radius_um", None, low=1e-4, high=1e3),
+            )
+            st.finish("distribution, median_radius_um, sigma_g, min_radius_um, max_radius_um")
+        else:
+            size = sizes.PowerLaw(
+                st.number("min_radius_um", _REQUIRED, low=1e-4, high=1e3),
+                st.number("max_radius_um", _REQUIRED, low=1e-4, high=1e3),
+                st.number("slope", _REQUIRED, low=-10.0, high=10.0),
+            )
+            st.finish("distribution, min_radius_um, max_radius_um, slope")
+    except ValueError as exc:
+        if isinstance(exc, ScenarioError):
+            raise
+        raise st.error(None, str(exc)) from None
+
+    density = None
+    dt = t.subtable("density")
+    if dt is not None:
+        density = _density(dt)
+    t.finish("name, material, size, density")
+    return Population(name=name, material=material, size=size, density=density)
+
+
+_PROFILE_KEYS = {
+    "exponential": (("surface_density_cm3", True), ("scale_height_km", True)),
+    "power-law": (("surface_density_cm3", True), ("reference_altitude_km", True), ("exponent", True)),
+    "terminator": (("surface_density_cm3", True), ("scale_height_km", True), ("sunlit_width_km", True),
+                   ("dark_width_km", True), ("offset_km", False), ("floor_fraction", False)),
+}
+
+
+def _density(t: _Table):
+    from dustrt import density
+
+    kind = t.string("profile", _REQUIRED, choices=tuple(density.PROFILE_KINDS))
+    try:
+        if kind == "table":
+            p = t.path("file")
+            scale = t.number("scale", 1.0, low=0.0, high=1e30)
+            t.finish("profile, file, scale")
+            return density.TableProfile.from_file(p, scale=scale)
+        params = {}
+        for key, required in _PROFILE_KEYS[kind]:
+            v = t.number(key, _REQUIRED if required else None, low=-1e30, high=1e30)
+            if v is not None:
+                params[key] = v
+        t.finish("profile, " + ", ".join(k for k, _ in _PROFILE_KEYS[kind]))
+        return density.make_profile(kind, **params)
+    except ScenarioError:
+        raise
+    except ValueError as exc:
+        raise t.error(None, str(exc)) from None
+
+
+def _observer(t: _Table) -> Observer:
+    from dustrt.geometry import local_time_from_solar_zenith_h
+
+    alt = t.number("altitude_km", _REQUIRED, low=0.0, high=1e5, low_open=True)
+    lat = t.number("latitude_deg", 0.0, low=-90.0, high=90.0)
+    if t.has("local_time_h") and t.has("solar_zenith_deg"):
+        raise t.error("local_time_h", "give either local_time_h or solar_zenith_deg with side, not both")
+    if t.has("solar_zenith_deg"):
+        sza = t.number("solar_zenith_deg", _REQUIRED, low=0.0, high=180.0)
+        side = t.string("side", _REQUIRED, choices=("dawn", "dusk"))
+        try:
+            lt = local_time_from_solar_zenith_h(sza, side, lat)
+        except ValueError as exc:
+            raise t.error("solar_zenith_deg", str(exc)) from None
+    else:
+        lt = t.number("local_time_h", _REQUIRED, low=0.0, high=24.0, high_open=True)
+    t.finish("altitude_km, latitude_deg, local_time_h (or solar_zenith_deg and side)")
+    return Observer(altitude_km=alt, latitude_deg=lat, local_time_h=lt)
+
+
+def _view(t: _Table, observer: Observer | None) -> View:
+    az = t.number("azimuth_deg", 0.0, low=-360.0, high=360.0)
+    if t.has("directions"):
+        if t.has("tangent_altitudes_km"):
+            raise t.error("directions", "give either directions or tangent_altitudes_km, not both")
+        raw = t.raw("directions")
+        try:
+            d = np.asarray(raw, dtype=float)
+        except (TypeError, ValueError):
+            d = np.zeros((0,))
+        if d.ndim != 2 or d.shape[1] != 3 or d.shape[0] < 1 or not np.all(np.isfinite(d)):
+            raise t.error("directions", "must be a list of [lx, ly, lz] look vectors")
+        norm = np.linalg.norm(d, axis=1)
+        if np.any(norm == 0):
+            raise t.error("directions", "look vectors must be non-zero")
+        t.finish("directions, azimuth_deg")
+        return View(tangent_altitudes_km=None, azimuth_deg=az, directions=d / norm[:, None])
+    if not t.has("tangent_altitudes_km"):
+        raise t.error("tangent_altitudes_km", "is required (or directions)")
+    h = _grid(t, "tangent_altitudes_km", low=-100.0, high=1e5)
+    t.finish("tangent_altitudes_km, azimuth_deg (or directions)")
+    return View(tangent_altitudes_km=h, azimuth_deg=az, directions=None)
+
+
+def _check_view_against_observer(s: Scenario, top: _Table) -> None:
+    if s.view is None or s.observer is None or s.view.tangent_altitudes_km is None:
+        return
+    h = s.view.tangent_altitudes_km
+    if np.any(h >= s.observer.altitude_km):
+        raise top.error("view.tangent_altitudes_km",
+                        f"must be below the observer altitude ({s.observer.altitude_km:g} km), got {h.max():g}")
+    if np.any(h < -s.body_radius_km):
+        raise top.error("view.tangent_altitudes_km", "must be above -radius_km")
+
+
+def _instrument(t: _Table):
+    from dustrt import instrument as inst_mod
+
+    kw: dict[str, Any] = {}
+    kw["aperture_area_cm2"] = t.number("aperture_area_cm2", _REQUIRED, low=0.0, high=1e6, low_open=True)
+    if t.has("field_of_view_deg") == t.has("solid_angle_sr"):
+        raise t.error("field_of_view_deg", "give exactly one of field_of_view_deg (full cone angle) "
+                                           "and solid_angle_sr")
+    if t.has("field_of_view_deg"):
+        kw["field_of_view_deg"] = t.number("field_of_view_deg", _REQUIRED, low=0.0, high=180.0, low_open=True)
+    else:
+        kw["solid_angle_sr"] = t.number("solid_angle_sr", _REQUIRED, low=0.0, high=2 * math.pi, low_open=True)
+    kw["integration_time_s"] = t.number("integration_time_s", _REQUIRED, low=0.0, high=1e7, low_open=True)
+    kw["frames"] = t.number("frames", 1, low=1, high=1e7, integer=True)
+    kw["bin_width_nm"] = t.number("bin_width_nm", _REQUIRED, low=0.0, high=1000.0, low_open=True)
+    kw["resolution_fwhm_nm"] = t.number("resolution_fwhm_nm", _REQUIRED, low=0.0, high=1000.0)
+    kw["wavelength_min_nm"] = t.number("wavelength_min_nm", _REQUIRED, low=100.0, high=5000.0)
+    kw["wavelength_max_nm"] = t.number("wavelength_max_nm", _REQUIRED, low=100.0, high=5000.0)
+    thr = t.raw("throughput", 1.0)
+    if isinstance(thr, str):
+        p = t.path("throughput")
+        try:
+            kw["throughput"] = inst_mod.read_throughput_csv(p)
+        except ValueError as exc:
+            raise t.error("throughput", str(exc)) from None
+    else:
+        kw["throughput"] = t.number("throughput", 1.0, low=0.0, high=1.0, low_open=True)
+    kw["read_noise_e"] = t.number("read_noise_e", 0.0, low=0.0, high=1e6)
+    kw["dark_current_e_s"] = t.number("dark_current_e_s", 0.0, low=0.0, high=1e9)
+    kw["stray_light_fraction"] = t.number("stray_light_fraction", 0.0, low=0.0, high=1.0)
+    kw["stray_light_reference_radiance"] = t.number("stray_light_reference_radiance", 0.0, low=0.0, high=1e3)
+    fov_nodes = t.number("field_of_view_rings", 0, low=0, high=64, integer=True)
+    t.finish("aperture_area_cm2, field_of_view_deg | solid_angle_sr, integration_time_s, frames, "
+             "bin_width_nm, resolution_fwhm_nm, wavelength_min_nm, wavelength_max_nm, throughput, "
+             "read_noise_e, dark_current_e_s, stray_light_fraction, stray_light_reference_radiance, "
+             "field_of_view_rings")
+    if kw["wavelength_max_nm"] <= kw["wavelength_min_nm"] + kw["bin_width_nm"] * (1 - 1e-9) - kw["bin_width_nm"]:
+        raise t.error("wavelength_max_nm", "must exceed wavelength_min_nm")
+    try:
+        instrument = inst_mod.Instrument(**kw)
+    except ValueError as exc:
+        raise t.error(None, str(exc)) from None
+    return InstrumentConfig(instrument=instrument, field_of_view_rings=fov_nodes)
+
+
+@dataclass(frozen=True)
+class InstrumentConfig:
+    """The instrument plus how the field of view is sampled (0 rings: central ray only)."""
+
+    instrument: Any
+    field_of_view_rings: int = 0
+
+
+def _band(t: _Table, name: str, default):
+    if not t.has(name):
+        return default
+    arr = t.number_list(name, low=100.0, high=5000.0, min_len=2)
+    if arr.size != 2 or arr[1] <= arr[0]:
+        raise t.error(name, f"must be [lower_nm, upper_nm] with lower < upper, got {arr.tolist()}")
+    return (float(arr[0]), float(arr[1]))
+
+
+def _band_list(t: _Table, name: str) -> tuple:
+    if not t.has(name):
+        return ()
+    v = t.raw(name)
+    if not isinstance(v, list) or not all(isinstance(b, list) for b in v):
+        raise t.error(name, "must be a list of [lower_nm, upper_nm] pairs")
+    out = []
+    for i, b in enumerate(v):
+        if len(b) != 2 or any(isinstance(x, bool) or not isinstance(x, (int, float)) for x in b) \
+                or not (100 <= b[0] < b[1] <= 5000):
+            raise t.error(f"{name}[{i}]", f"must be [lower_nm, upper_nm] with 100 <= lower < upper <= 5000, got {b!r}")
+        out.append((float(b[0]), float(b[1])))
+    return tuple(out)
+
+
+def _separation(t: _Table) -> Separation:
+    s = Separation(
+        blue_band_nm=_band(t, "blue_band_nm", Separation.blue_band_nm),
+        red_band_nm=_band(t, "red_band_nm", Separation.red_band_nm),
+        fit_bands_nm=_band_list(t, "fit_bands_nm"),
+        mask_nm=_band_list(t, "mask_nm"),
+        free_colour_slope=t.boolean("free_colour_slope", False),
+    )
+    t.finish("blue_band_nm, red_band_nm, fit_bands_nm, mask_nm, free_colour_slope")
+    return s
+
+
+def _sweep(t: _Table, raw: dict) -> Sweep:
+    axes = []
+    sigma = t.number("detection_sigma", 5.0, low=0.0, high=100.0, low_open=True)
+    chunk = t.number("chunk_size", 0, low=0, high=1e6, integer=True)
+    for key in list(t.data):
+        if key in ("detection_sigma", "chunk_size"):
+            continue
+        if key == "radius_um":
+            values = _grid(t, key, low=1e-4, high=1e3)
+        else:
+            values = _grid(t, key, low=-1e30, high=1e30)
+            try:
+                resolve_dotted(raw, key)
+            except KeyError as exc:
+                raise t.error(key, f"is not a numeric key of this scenario ({exc.args[0]}); use a dotted "
+                                   "path such as 'observer.local_time_h' or "
+                                   "'population.NAME.density.scale_height_km'") from None
+        axes.append((key, np.asarray(values, dtype=float)))
+    if not axes:
+        raise t.error(None, "needs at least one swept key (e.g. radius_um = {start, stop, num, spacing})")
+    t.finish()
+    return Sweep(axes=tuple(axes), detection_sigma=sigma, chunk_size=chunk)
+
+
+# ---------------------------------------------------------------- dotted keys (sweeps)
+
+
+def _locate(raw: dict, dotted: str):
+    parts = dotted.split(".")
+    node: Any = raw
+    i = 0
+    while i < len(parts) - 1:
+        part = parts[i]
+        if part == "population":
+            if i + 1 >= len(parts) - 1:
+                raise KeyError(f"'{dotted}' needs population.NAME.key")
+            name = parts[i + 1]
+            pops = node.get("population", []) if isinstance(node, dict) else []
+            match = [p for p in pops if isinstance(p, dict) and p.get("name") == name]
+            if not match:
+                raise KeyError(f"no population named {name!r}")
+            node = match[0]
+            i += 2
+            continue
+        if not isinstance(node, dict) or part not in node or not isinstance(node[part], dict):
+            raise KeyError(f"no table {part!r}")
+        node = node[part]
+        i += 1
+    last = parts[-1]
+    if not isinstance(node, dict):
+        raise KeyError(f"no key {last!r}")
+    return node, last
+
+
+def resolve_dotted(raw: dict, dotted: str) -> float:
+    """The numeric value at a dotted key (KeyError if absent or not a number)."""
+    node, last = _locate(raw, dotted)
+    if last not in node:
+        # an optional key that takes a default is still sweepable if its table exists
+        return math.nan
+    v = node[last]
+    if isinstance(v, bool) or not isinstance(v, (int, float)):
+        raise KeyError(f"{dotted!r} is not a number")
+    return float(v)
+
+
+def with_values(raw: dict, values: dict[str, float]) -> dict:
+    """A deep copy of ``raw`` with dotted keys set (radius_um is handled by the caller)."""
+    out = copy.deepcopy(raw)
+    for key, value in values.items():
+        node, last = _locate(out, key)
+        node[last] = int(value) if isinstance(node.get(last), int) and float(value).is_integer() \
+            and not isinstance(node.get(last), bool) else float(value)
+    return out
