@@ -40,3 +40,29 @@ def optics_figure(ds):
     ax2.legend(fontsize=7)
     fig.suptitle("grain-population optics")
     return fig
+
+
+def limb_figure(ds):
+    """Limb profiles (radiance vs tangent altitude, log) and spectra at a few tangent altitudes."""
+    plt = _plt()
+    fig, (ax1, ax2) = plt.subplots(1, 2, figsize=(11, 4.2))
+    wl = ds["wavelength_nm"].values
+    h = ds["tangent_altitude_km"].values
+    order = np.argsort(h)
+    for j in _pick(wl, 4):
+        ax1.semilogx(ds["radiance"].values[order, j], h[order], marker="o", ms=3, label=f"dust {wl[j]:.0f} nm")
+    if "zodiacal_radiance" in ds:
+        j = _pick(wl, 4)[len(_pick(wl, 4)) // 2]
+        ax1.semilogx(ds["zodiacal_radiance"].values[order, j], h[order], ls=":", color="grey",
+                     label=f"zodiacal light {wl[j]:.0f} nm")
+    ax1.set_xlabel("spectral radiance [W m⁻² sr⁻¹ nm⁻¹]")
+    ax1.set_ylabel("tangent altitude [km]")
+    ax1.legend(fontsize=7)
+    for i in _pick(order, 4):
+        k = order[i]
+        ax2.semilogy(wl, ds["radiance"].values[k], label=f"h_t = {h[k]:.1f} km")
+    ax2.set_xlabel("wavelength [nm]")
+    ax2.set_ylabel("spectral radiance [W m⁻² sr⁻¹ nm⁻¹]")
+    ax2.legend(fontsize=7)
+    fig.suptitle("limb radiance of the hypothesised dust")
+    return fig

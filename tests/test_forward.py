@@ -1,0 +1,171 @@
+"""Limb forward model: optics × columns, linearity, additivity, extinction, outputs, bad input."""
+
+import textwrap
+
+import numpy as np
+import pytest
+import xarray as xr
+
+from dustrt.cli import main
+from dustrt.config import load_scenario, scenario_from_dict
+from dustrt.forward import compute_limb, limb_dataset
+from dustrt.optics import population_optics
+
+SCEN = """
+[wavelengths]
+values_nm = [300.0, 450.0, 600.0, 750.0]
+
+[observer]
+altitude_km = 50.0
+local_time_h = 6.3
+
+[view]
+tangent_altitudes_km = [0.0, 5.0, 15.0, 30.0]
+azimuth_deg = 0.0
+
+[integration]
+top_altitude_km = 200.0
+relative_tolerance = 1e-6
+extinction = EXT
+
+[background]
+zodiacal_light = false
+
+[[population]]
+name = "fine"
+material = "mare_basaltic_analogue"
+size = { distribution = "lognormal", median_radius_um = 0.1, sigma_g = 1.5 }
+density = { profile = "exponential", surface_density_cm3 = N0, scale_height_km = 10.0 }
+
+[[population]]
+name = "coarse"
+material = { n = 1.6, k = 0.001 }
+size = { distribution = "monodisperse", radius_um = 0.4 }
+density = { profile = "terminator", surface_density_cm3 = 1e-4, scale_height_km = 5.0, sunlit_width_km = 200.0, dark_width_km = 50.0 }
+"""
+
+
+def scen(tmp_path, ext="false", n0="1e-2", extra=""):
+    p = tmp_path / "s.toml"
+    p.write_text(textwrap.dedent(SCEN.replace("EXT", ext).replace("N0", n0)) + extra)
+    return load_scenario(p)
+
+
+def test_radiance_equals_formula_without_extinction(tmp_path):
+    # DESIGN.md radiance formula: L = F/d² · C_sca·1e-8 · P(θ)/4π · N_lit (extinction off)
+    s = scen(tmp_path)
+    r = compute_limb(s)
+    for p, pop in enumerate(s.populations):
+        for i, theta in enumerate(r.columns.scattering_angle_deg):
+            o = population_optics(pop.material, pop.size, s.wavelength_nm, [theta])
+            expected = (r.solar_irradiance * o.scattering_cross_section_um2 * 1e-8 * o.phase_function[:, 0]
+                        / (4 * np.pi) * r.columns.sunlit_column_cm2[p, i])
+            np.testing.assert_allclose(r.population_radiance[p, i], expected, rtol=1e-12)
+    np.testing.assert_allclose(r.radiance, r.population_radiance.sum(axis=0), rtol=1e-14)
+
+
+def test_linear_in_density(tmp_path):
+    a = compute_limb(scen(tmp_path, n0="1e-2"))
+    b = compute_limb(scen(tmp_path, n0="3e-2"))
+    np.testing.assert_allclose(b.population_radiance[0], 3 * a.population_radiance[0], rtol=1e-12)
+    np.testing.assert_allclose(b.population_radiance[1], a.population_radiance[1], rtol=1e-12)
+
+
+def test_populations_add(tmp_path):
+    s = scen(tmp_path)
+    both = compute_limb(s)
+    for p in range(2):
+        raw = dict(s.raw)
+        raw["population"] = [s.raw["population"][p]]
+        one = compute_limb(scenario_from_dict(raw, base_dir=tmp_path))
+        np.testing.assert_allclose(both.population_radiance[p], one.population_radiance[0], rtol=1e-12)
+
+
+def test_extinction_first_order(tmp_path):
+    # With extinction the radiance drops by the first-order amount Σ_q C_ext,q K_pq / N_p; for a
+    # dense layer the relative drop must scale linearly with density (first-order expansion of
+    # exp(-τ), τ ≪ 1), and stay below the full line-of-sight optical depth doubled.
+    off = compute_limb(scen(tmp_path, ext="false", n0="1.0"))
+    on = compute_limb(scen(tmp_path, ext="true", n0="1.0"))
+    on2 = compute_limb(scen(tmp_path, ext="true", n0="2.0"))
+    off2 = compute_limb(scen(tmp_path, ext="false", n0="2.0"))
+    drop1 = 1 - on.population_radiance[0] / off.population_radiance[0]
+    drop2 = 1 - on2.population_radiance[0] / off2.population_radiance[0]
+    assert np.all(drop1 > 0)
+    # population 0 dominates the extinction, so doubling its density ~doubles the drop
+    np.testing.assert_allclose(drop2, 2 * drop1, rtol=0.02)
+    k = on.columns.extinction_weight_cm4
+    cext = on.extinction_cross_section_um2 * 1e-8
+    expected = np.einsum("ql,qw->lw", k[0], cext) / on.columns.sunlit_column_cm2[0][:, None]
+    np.testing.assert_allclose(drop1, expected, rtol=1e-10)
+    # optical depth along the line of sight = Σ C_ext N (full column)
+    np.testing.assert_allclose(on.optical_depth, np.einsum("pl,pw->lw", on.columns.column_cm2, cext), rtol=1e-12)
+
+
+def test_dataset_contents_and_units(tmp_path):
+    s = scen(tmp_path)
+    ds = limb_dataset(s)
+    for v in ("radiance", "population_radiance", "sunlit_column_cm2", "column_cm2", "optical_depth",
+              "solar_irradiance", "zodiacal_radiance"):
+        assert "units" in ds[v].attrs and "long_name" in ds[v].attrs, v
+    assert ds["radiance"].dims == ("line_of_sight", "wavelength_nm")
+    assert ds["population_radiance"].dims == ("population", "line_of_sight", "wavelength_nm")
+    for c in ("tangent_altitude_km", "scattering_angle_deg", "look_direction", "terminator_distance_km",
+              "observer_position_km"):
+        assert c in ds.coords
+    np.testing.assert_allclose(ds["tangent_altitude_km"], [0, 5, 15, 30], atol=1e-6)
+    assert "[observer]" in ds.attrs["scenario"]
+    assert ds.attrs["dustrt_version"]
+
+
+def test_cli_limb_round_trip_and_demo(tmp_path):
+    out = tmp_path / "demo.nc"
+    png = tmp_path / "demo.png"
+    assert main(["limb", "-o", str(out), "--plot", str(png), "-q"]) == 0
+    ds = xr.open_dataset(out, engine="h5netcdf")
+    assert ds.sizes["line_of_sight"] == 16
+    assert np.all(ds["radiance"].values > 0)
+    assert "DEMO" in ds.attrs["scenario"]
+    ds.close()
+    assert png.stat().st_size > 1000
+
+
+BAD = [
+    ("tangent above observer", "[view]\ntangent_altitudes_km = [0.0, 60.0]", "view.tangent_altitudes_km"),
+    ("observer below surface", "[observer]\naltitude_km = -5.0\nlocal_time_h = 6.3", "observer.altitude_km"),
+    ("unknown profile", 'density = { profile = "gaussian", surface_density_cm3 = 1e-4 }', "population[1].density.profile"),
+]
+
+
+@pytest.mark.parametrize("label,replacement,key", BAD, ids=[b[0] for b in BAD])
+def test_bad_limb_input(tmp_path, capsys, label, replacement, key):
+    text = textwrap.dedent(SCEN.replace("EXT", "false").replace("N0", "1e-2"))
+    if replacement.startswith("[view]"):
+        text = text.replace("[view]\ntangent_altitudes_km = [0.0, 5.0, 15.0, 30.0]", replacement)
+    elif replacement.startswith("[observer]"):
+        text = text.replace("[observer]\naltitude_km = 50.0\nlocal_time_h = 6.3", replacement)
+    else:
+        text = text.replace(
+            'density = { profile = "terminator", surface_density_cm3 = 1e-4, scale_height_km = 5.0, '
+            'sunlit_width_km = 200.0, dark_width_km = 50.0 }', replacement)
+    p = tmp_path / "bad.toml"
+    p.write_text(text)
+    out = tmp_path / "o.nc"
+    assert main(["limb", str(p), "-o", str(out)]) == 2
+    err = capsys.readouterr().err
+    assert key in err and "Traceback" not in err
+    assert not out.exists()
+
+
+def test_nan_in_density_table(tmp_path, capsys):
+    (tmp_path / "grid.csv").write_text(
+        "altitude_km,terminator_distance_km,density_cm3\n0,-100,1e-3\n0,100,nan\n50,-100,1e-4\n50,100,1e-4\n")
+    text = textwrap.dedent(SCEN.replace("EXT", "false").replace("N0", "1e-2")).replace(
+        'density = { profile = "terminator", surface_density_cm3 = 1e-4, scale_height_km = 5.0, '
+        'sunlit_width_km = 200.0, dark_width_km = 50.0 }', 'density = { profile = "table", file = "grid.csv" }')
+    p = tmp_path / "t.toml"
+    p.write_text(text)
+    assert main(["limb", str(p), "-o", str(tmp_path / "o.nc")]) == 2
+    err = capsys.readouterr().err
+    assert "grid.csv" in err and "population[1].density" in err
+    assert not (tmp_path / "o.nc").exists()
