@@ -106,14 +106,39 @@ def _phase_at(optics_list, angles_deg, unique_angles):
     return np.stack([o.phase_function[:, idx].T for o in optics_list])  # (P, L, W)
 
 
+_COLUMN_CACHE: dict = {}
+_COLUMN_CACHE_SIZE = 16
+
+
 def compute_columns(scenario, geometry: LimbGeometry, extinction: bool | None = None, progress=False):
-    """Sunlit columns for the scenario's populations along the given lines of sight."""
+    """Sunlit columns for the scenario's populations along the given lines of sight.
+
+    Results are memoised on (profiles, rays, body, integration settings), so sweeps
+    over grain size or instrument re-use the columns (DESIGN.md data flow).
+    """
+    ext = scenario.integration.extinction if extinction is None else extinction
+    profiles = tuple(p.density for p in scenario.populations)
+    looks = np.ascontiguousarray(geometry.look_direction, dtype=float)
+    obs = np.ascontiguousarray(geometry.observer_km, dtype=float)
+    key = (profiles, obs.tobytes(), obs.shape, looks.tobytes(), scenario.body_radius_km,
+           scenario.integration.top_altitude_km, scenario.integration.relative_tolerance, bool(ext))
+    try:
+        hit = _COLUMN_CACHE.get(key)
+    except TypeError:  # an unhashable profile: no memo
+        hit, key = None, None
+    if hit is not None:
+        return hit
+    result = _integrate_in_chunks(scenario, profiles, obs, looks, ext, progress)
+    if key is not None:
+        if len(_COLUMN_CACHE) >= _COLUMN_CACHE_SIZE:
+            _COLUMN_CACHE.pop(next(iter(_COLUMN_CACHE)))
+        _COLUMN_CACHE[key] = result
+    return result
+
+
+def _integrate_in_chunks(scenario, profiles, obs, looks, ext, progress):
     from dustrt.los import integrate_columns
 
-    ext = scenario.integration.extinction if extinction is None else extinction
-    profiles = [p.density for p in scenario.populations]
-    looks = geometry.look_direction
-    obs = np.asarray(geometry.observer_km, dtype=float)
     n = looks.shape[0]
     n_chunks = max(1, min(20, n // 10)) if progress else 1
     bounds = np.linspace(0, n, n_chunks + 1).astype(int)
@@ -126,7 +151,7 @@ def compute_columns(scenario, geometry: LimbGeometry, extinction: bool | None = 
     for c in it:
         s = slice(bounds[c], bounds[c + 1])
         parts.append(integrate_columns(obs if obs.ndim == 1 else obs[s], looks[s], scenario.body_radius_km,
-                                       scenario.integration.top_altitude_km, profiles,
+                                       scenario.integration.top_altitude_km, list(profiles),
                                        scenario.integration.relative_tolerance, ext))
     if len(parts) == 1:
         return parts[0]
@@ -184,12 +209,17 @@ def background_radiance(scenario, geometry: LimbGeometry, columns, solar_irradia
     return zod, surf
 
 
-def compute_limb(scenario, geometry: LimbGeometry | None = None, progress=False) -> LimbResult:
-    """The full limb computation for a scenario (pencil-beam lines of sight)."""
+def compute_limb(scenario, geometry: LimbGeometry | None = None, progress=False,
+                 extinction: bool | None = None) -> LimbResult:
+    """The full limb computation for a scenario (pencil-beam lines of sight).
+
+    ``extinction`` overrides the scenario's setting (analysis templates use
+    False: radiance then is exactly linear in density).
+    """
     from dustrt.sun import solar_irradiance
 
     geometry = geometry or scenario_geometry(scenario)
-    columns = compute_columns(scenario, geometry, progress=progress)
+    columns = compute_columns(scenario, geometry, extinction=extinction, progress=progress)
     angles = columns.scattering_angle_deg
     unique = np.unique(angles)
     optics = population_optics_for(scenario, unique)
