@@ -66,3 +66,75 @@ def limb_figure(ds):
     ax2.legend(fontsize=7)
     fig.suptitle("limb radiance of the hypothesised dust")
     return fig
+
+
+def limits_figure(ds):
+    """Upper limit vs grain radius (log-log) with the detection threshold."""
+    plt = _plt()
+    fig, ax = plt.subplots(figsize=(6.5, 4.5))
+    r = ds["radius_um"].values
+    for p in ds["population"].values:
+        sel = ds.sel(population=p)
+        (line,) = ax.loglog(r, sel["density_upper_limit_cm3"], marker="o", ms=3,
+                            label=f"{p}: upper limit ({ds.attrs['confidence']:g} CL)")
+        ax.loglog(r, sel["detection_threshold_density_cm3"], ls="--", color=line.get_color(),
+                  label=f"{p}: {ds.attrs['detection_sigma']:g}σ detection threshold")
+    ax.set_xlabel("grain radius [µm]")
+    ax.set_ylabel("density normalisation [cm⁻³]")
+    ax.set_title(f"upper limits ({ds.attrs['method']})", fontsize=10)
+    ax.legend(fontsize=7)
+    return fig
+
+
+def separation_figure(ds, population=0, observation=0):
+    """Data, fitted zodiacal and dust components, and residuals for a few lines of sight."""
+    plt = _plt()
+    fig, (ax1, ax2) = plt.subplots(2, 1, figsize=(8, 6), sharex=True, gridspec_kw={"height_ratios": [3, 1]})
+    wl = ds["wavelength_nm"].values
+    sel = ds.isel(population=population, observation=observation)
+    for k in _pick(ds["line_of_sight"].values, 3):
+        s = sel.isel(line_of_sight=k)
+        (line,) = ax1.semilogy(wl, s["observed_radiance"], lw=0.8, label=f"data, line of sight {k}")
+        ax1.semilogy(wl, s["zodiacal_fit_radiance"], ls=":", color=line.get_color(), label="zodiacal fit")
+        ax1.semilogy(wl, s["dust_excess_radiance"], ls="--", color=line.get_color(), label="dust fit")
+        model = s["zodiacal_fit_radiance"] + s["dust_excess_radiance"]
+        ax2.plot(wl, (s["observed_radiance"] - model) / s["observed_uncertainty"], lw=0.8, color=line.get_color())
+    ax1.set_ylabel("spectral radiance [W m⁻² sr⁻¹ nm⁻¹]")
+    ax1.legend(fontsize=7)
+    ax2.set_xlabel("wavelength [nm]")
+    ax2.set_ylabel("residual [σ]")
+    fig.suptitle(f"dust/zodiacal separation: population {ds['population'].values[population]}")
+    return fig
+
+
+def sweep_figure(ds):
+    """Minimum detectable density vs grain radius (log-log), or a 2-D map for two swept keys."""
+    plt = _plt()
+    dims = [d for d in ds["minimum_detectable_density_cm3"].dims if d != "population"]
+    var = ds["minimum_detectable_density_cm3"]
+    if len(dims) == 2:
+        fig, axes = plt.subplots(1, ds.sizes["population"], figsize=(6 * ds.sizes["population"], 4.5), squeeze=False)
+        for ax, p in zip(axes[0], ds["population"].values):
+            z = var.sel(population=p).transpose(dims[1], dims[0])
+            logx = "radius" in dims[0]
+            mesh = ax.pcolormesh(ds[dims[0]], ds[dims[1]], np.log10(z), shading="auto")
+            if logx:
+                ax.set_xscale("log")
+            fig.colorbar(mesh, ax=ax, label="log10 minimum detectable density [cm⁻³]")
+            ax.set_xlabel(f"{ds[dims[0]].attrs.get('sweep_key', dims[0])} [{ds[dims[0]].attrs.get('units', '')}]")
+            ax.set_ylabel(f"{ds[dims[1]].attrs.get('sweep_key', dims[1])} [{ds[dims[1]].attrs.get('units', '')}]")
+            ax.set_title(f"population {p}", fontsize=10)
+        return fig
+    fig, ax = plt.subplots(figsize=(6.5, 4.5))
+    x = dims[0]
+    rest = [d for d in dims[1:]]
+    for p in ds["population"].values:
+        v = var.sel(population=p)
+        if rest:
+            v = v.isel({d: 0 for d in rest})
+        ax.loglog(ds[x], v, marker="o", ms=3, label=f"{p}")
+    ax.set_xlabel(f"{ds[x].attrs.get('sweep_key', x)} [{ds[x].attrs.get('units', '')}]")
+    ax.set_ylabel("minimum detectable density [cm⁻³]")
+    ax.set_title(f"{ds.attrs['detection_sigma']:g}σ detectability", fontsize=10)
+    ax.legend(fontsize=7)
+    return fig
