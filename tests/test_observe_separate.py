@@ -1,0 +1,294 @@
+"""Simulated observations, noise statistics, dust/zodiacal separation, limits and sweeps."""
+
+import textwrap
+
+import numpy as np
+import pytest
+import xarray as xr
+
+from dustrt.cli import main
+from dustrt.config import load_scenario
+from dustrt.observe import observation_dataset
+
+SCEN = """
+[wavelengths]
+start_nm = 280.0
+stop_nm = 760.0
+step_nm = 4.0
+
+[observer]
+altitude_km = 40.0
+local_time_h = 5.6
+
+[view]
+tangent_altitudes_km = [3.0, 10.0, 20.0]
+
+[integration]
+top_altitude_km = 200.0
+extinction = false
+
+[[population]]
+name = "fine"
+material = "mare_basaltic_analogue"
+size = { distribution = "monodisperse", radius_um = 0.08 }
+density = { profile = "exponential", surface_density_cm3 = N0, scale_height_km = 10.0 }
+
+[background]
+zodiacal_light = true
+
+[instrument]
+aperture_area_cm2 = 20.0
+field_of_view_deg = 0.2
+integration_time_s = 10.0
+frames = 4
+bin_width_nm = 8.0
+resolution_fwhm_nm = 8.0
+wavelength_min_nm = 300.0
+wavelength_max_nm = 740.0
+throughput = 0.1
+read_noise_e = 10.0
+dark_current_e_s = 2.0
+
+[separation]
+mask_nm = [[585.0, 595.0]]
+"""
+
+
+def scenario(tmp_path, n0="1e-7", extra="", name="s.toml"):
+    p = tmp_path / name
+    p.write_text(textwrap.dedent(SCEN.replace("N0", n0)) + textwrap.dedent(extra))
+    return load_scenario(p), p
+
+
+def test_observation_file_contents(tmp_path):
+    sc, _ = scenario(tmp_path)
+    ds = observation_dataset(sc, realizations=3, seed=7)
+    assert ds["radiance"].dims == ("observation", "line_of_sight", "wavelength_nm")
+    assert ds["radiance_uncertainty"].shape == ds["radiance"].shape
+    for v in ("radiance", "radiance_uncertainty", "signal_e", "noise_e", "expected_radiance"):
+        assert "units" in ds[v].attrs
+    # reproducible with a seed
+    again = observation_dataset(sc, realizations=3, seed=7)
+    np.testing.assert_array_equal(ds["radiance"], again["radiance"])
+    other = observation_dataset(sc, realizations=3, seed=8)
+    assert not np.array_equal(ds["radiance"], other["radiance"])
+
+
+def test_noise_realisations_match_uncertainty(tmp_path):
+    # the scatter of many simulated calibrated spectra equals radiance_uncertainty; with N = 2000
+    # draws the sample std has relative standard error 1/sqrt(2(N-1)) ≈ 1.6 %; 5 σ band (8 %)
+    # on each bin, and the mean over bins within 1 % (Poisson + Gaussian read noise).
+    sc, _ = scenario(tmp_path)
+    ds = observation_dataset(sc, realizations=2000, seed=1)
+    std = ds["radiance"].std("observation", ddof=1).values
+    unc = ds["radiance_uncertainty"].isel(observation=0).values
+    ratio = std / unc
+    assert np.all(np.abs(ratio - 1) < 0.08)
+    assert abs(ratio.mean() - 1) < 0.01
+    mean = ds["radiance"].mean("observation").values
+    np.testing.assert_array_less(np.abs(mean - ds["expected_radiance"].values), 5 * unc / np.sqrt(2000))
+
+
+def test_finite_field_of_view_matters_for_steep_profiles(tmp_path):
+    # A 1 km scale height seen through a 1° field of view (≈ 7 km at the ~400 km limb distance)
+    # is smeared: the FOV average exceeds the central ray where the profile is convex (log-linear),
+    # as Jensen's inequality requires; with 10 km scale height and 0.05° it does not matter.
+    from dustrt.observe import binned_limb
+
+    extra_fov = "field_of_view_rings = 4\n"
+    steep, _ = scenario(tmp_path, n0="1e-3")
+    raw = steep.raw
+    text = SCEN.replace("N0", "1e-3").replace("scale_height_km = 10.0", "scale_height_km = 1.0").replace(
+        "[3.0, 10.0, 20.0]", "[8.0, 12.0, 20.0]")  # sub-rays stay above the sunlit surface
+    wide = text.replace("field_of_view_deg = 0.2", "field_of_view_deg = 1.0").replace(
+        "dark_current_e_s = 2.0", "dark_current_e_s = 2.0\n" + extra_fov)
+    narrow = text.replace("field_of_view_deg = 0.2", "field_of_view_deg = 1.0")
+    (tmp_path / "w.toml").write_text(textwrap.dedent(wide))
+    (tmp_path / "n.toml").write_text(textwrap.dedent(narrow))
+    bw = binned_limb(load_scenario(tmp_path / "w.toml"))
+    bn = binned_limb(load_scenario(tmp_path / "n.toml"))
+    ratio = bw.dust_radiance[:, 20] / bn.dust_radiance[:, 20]
+    assert np.all(ratio > 1.05)
+    gentle = SCEN.replace("N0", "1e-3").replace("field_of_view_deg = 0.2", "field_of_view_deg = 0.05").replace(
+        "dark_current_e_s = 2.0", "dark_current_e_s = 2.0\n" + extra_fov)
+    (tmp_path / "g.toml").write_text(textwrap.dedent(gentle))
+    bg = binned_limb(load_scenario(tmp_path / "g.toml"))
+    central = binned_limb(load_scenario(tmp_path / "g.toml"), extinction=None)
+    assert raw  # scenario parsed
+    np.testing.assert_allclose(bg.dust_radiance, central.dust_radiance, rtol=1e-12)
+    from dustrt.observe import fov_limb
+
+    c, pop, _, _ = fov_limb(load_scenario(tmp_path / "g.toml"))
+    np.testing.assert_allclose(pop.sum(axis=0), c.radiance, rtol=2e-3)
+
+
+def _separate(tmp_path, n0_truth, realizations, seed, hypothesis_n0="1e-7"):
+    sc_truth, _ = scenario(tmp_path, n0=n0_truth, name="truth.toml")
+    obs = observation_dataset(sc_truth, realizations=realizations, seed=seed)
+    path = tmp_path / "obs.nc"
+    from dustrt import io
+
+    io.write_netcdf(obs, path)
+    hyp, hyp_path = scenario(tmp_path, n0=hypothesis_n0, name="hyp.toml")
+    from dustrt.separate import read_observation, separate
+
+    spectra = read_observation(path)
+    return separate(hyp, spectra)[0], path, hyp_path
+
+
+def test_no_dust_pulls_are_standard_normal(tmp_path):
+    # with no dust injected the dust amplitude is consistent with zero: pulls have mean ≈ 0 and
+    # width ≈ 1 (600 spectra: standard errors 0.04 and 0.03; 4-sigma bands)
+    fit, _, _ = _separate(tmp_path, "0.0", 200, seed=3)
+    pull = (fit.dust_amplitude / fit.dust_sigma).ravel()
+    assert abs(pull.mean()) < 4 / np.sqrt(pull.size)
+    assert abs(pull.std(ddof=1) - 1) < 4 / np.sqrt(2 * pull.size)
+    assert np.nanmean(fit.chi2 / fit.dof) == pytest.approx(1.0, abs=0.05)
+
+
+def test_injected_dust_is_recovered(tmp_path):
+    # inject 3e-7 cm-3 with a 1e-7 hypothesis: the amplitude estimate is 3 within its uncertainty
+    fit, _, _ = _separate(tmp_path, "3e-7", 100, seed=4)
+    a = fit.dust_amplitude.ravel()
+    s = fit.dust_sigma.ravel()
+    pull = (a - 3.0) / s
+    assert abs(pull.mean()) < 4 / np.sqrt(pull.size)
+    assert abs(pull.std(ddof=1) - 1) < 4 / np.sqrt(2 * pull.size)
+
+
+def test_pure_zodiacal_colour_ratio(tmp_path, capsys):
+    # A pure zodiacal spectrum has the zodiacal colour ratio (Leinert et al. 1998 colour law:
+    # redder than the Sun, ratio < 1), and the fine-grain dust template is bluer (ratio > 1).
+    _, path, hyp_path = _separate(tmp_path, "0.0", 1, seed=1)
+    sc, _ = scenario(tmp_path, n0="0.0", name="expect.toml")
+    ds = observation_dataset(sc)  # expected, noise-free, no dust
+    from dustrt import io
+
+    io.write_netcdf(ds, tmp_path / "expected.nc")
+    out = tmp_path / "sep.nc"
+    png = tmp_path / "sep.png"
+    assert main(["separate", str(tmp_path / "expected.nc"), "--scenario", str(hyp_path), "-o", str(out),
+                 "--plot", str(png), "-q"]) == 0
+    r = xr.open_dataset(out, engine="h5netcdf")
+    obs = r["colour_ratio_observed"].values
+    zod = r["colour_ratio_zodiacal"].isel(population=0).values
+    np.testing.assert_allclose(obs, zod, rtol=1e-6)
+    assert np.all(obs < 1.0)
+    assert np.all(r["colour_ratio_dust"].values > 1.0)
+    np.testing.assert_allclose(r["dust_amplitude"].values, 0.0, atol=1e-6)
+    r.close()
+
+
+def test_limits_cli_and_coverage(tmp_path):
+    # Coverage (Feldman & Cousins 1998): with a true density of zero, the fraction of
+    # per-spectrum 95 % upper limits above the truth is 0.95 within binomial error.
+    fit, path, hyp_path = _separate(tmp_path, "0.0", 400, seed=11)
+    out = tmp_path / "lim.nc"
+    assert main(["limit", str(path), "--scenario", str(hyp_path), "-o", str(out), "--plot",
+                 str(tmp_path / "lim.png"), "-q"]) == 0
+    ds = xr.open_dataset(out, engine="h5netcdf")
+    assert ds.attrs["confidence"] == 0.95
+    assert "Feldman" in ds.attrs["method_description"]
+    up = ds["observation_upper_limit_cm3"].values.ravel()
+    n = up.size
+    cover = np.mean(up >= 0.0)
+    assert cover == 1.0  # the truth is the boundary: every FC interval contains zero...
+    # ...so test coverage at a non-zero truth with the interval (lower, upper)
+    ds.close()
+    fit, path, hyp_path = _separate(tmp_path, "2e-8", 400, seed=12)
+    assert main(["limit", str(path), "--scenario", str(hyp_path), "-o", str(out), "-q"]) == 0
+    ds = xr.open_dataset(out, engine="h5netcdf")
+    lo = ds["observation_lower_limit_cm3"].values.ravel()
+    up = ds["observation_upper_limit_cm3"].values.ravel()
+    inside = np.mean((lo <= 2e-8) & (up >= 2e-8))
+    n = lo.size
+    assert abs(inside - 0.95) < 4 * np.sqrt(0.95 * 0.05 / n)
+    # the joint limit combines all spectra: tighter than any single one
+    assert ds["density_upper_limit_cm3"].item() < np.nanmin(up)
+    ds.close()
+
+
+def test_limit_rejects_non_positive_uncertainty(tmp_path, capsys):
+    fit, path, hyp_path = _separate(tmp_path, "0.0", 2, seed=1)
+    ds = xr.open_dataset(path, engine="h5netcdf").load()
+    ds["radiance_uncertainty"][0, 0, 5] = 0.0
+    ds["radiance"][0, 1, 7] = np.nan
+    bad = tmp_path / "bad.nc"
+    ds.to_netcdf(bad, engine="h5netcdf")
+    assert main(["limit", str(bad), "--scenario", str(hyp_path), "-o", str(tmp_path / "l.nc")]) == 2
+    err = capsys.readouterr().err
+    assert "bad.nc" in err and "radiance_uncertainty" in err
+    # NaN bins alone are ignored and reported
+    ds["radiance_uncertainty"][0, 0, 5] = 1.0
+    ds.to_netcdf(tmp_path / "nan.nc", engine="h5netcdf")
+    assert main(["limit", str(tmp_path / "nan.nc"), "--scenario", str(hyp_path), "-o", str(tmp_path / "l.nc"), "-q"]) == 0
+    assert xr.open_dataset(tmp_path / "l.nc", engine="h5netcdf").attrs["ignored_nan_bins"] == 1
+
+
+def test_limits_many_spectra_vectorised(tmp_path):
+    # 10,000 spectra of ~55 bins go through one vectorised fit (no per-spectrum Python loop)
+    from dustrt.separate import fit_spectra
+
+    rng = np.random.default_rng(0)
+    b = 300
+    t = np.stack([np.linspace(1, 2, b), np.linspace(2, 1, b)])
+    data = 0.5 * t[0] + rng.normal(0, 0.01, (10000, b))
+    a, cov, a_nn, res = fit_spectra(data, np.full((10000, b), 0.01), np.broadcast_to(t, (10000, 2, b)),
+                                    np.ones((10000, b), bool))
+    assert a.shape == (10000, 2)
+    assert np.abs(a[:, 0] - 0.5).max() < 0.01
+
+
+SWEEP = """
+[sweep]
+radius_um = { start = 0.004, stop = 0.016, num = 3, spacing = "log" }
+"instrument.integration_time_s" = [10.0, 40.0]
+detection_sigma = 5.0
+"""
+
+
+def test_sweep_physics_scalings(tmp_path):
+    # Rayleigh regime: n_min ∝ a^-6 (C_sca ∝ a⁶, Bohren & Huffman 1983 ch. 5); photon-noise
+    # limit: n_min ∝ t^-1/2 (common practice); linear in the detection threshold.
+    from dustrt.sweep import run_sweep
+
+    text = SWEEP
+    sc, _ = scenario(tmp_path, extra=text.replace("detection_sigma = 5.0", "detection_sigma = 5.0"))
+    sc = load_scenario(tmp_path / "s.toml")
+    # photon-noise limit: no read noise, no dark
+    raw_text = (tmp_path / "s.toml").read_text().replace("read_noise_e = 10.0", "read_noise_e = 0.0").replace(
+        "dark_current_e_s = 2.0", "dark_current_e_s = 0.0")
+    (tmp_path / "s.toml").write_text(raw_text)
+    sc = load_scenario(tmp_path / "s.toml")
+    ds = run_sweep(sc, tmp_path / "sw.nc")
+    m = ds["minimum_detectable_density_cm3"].isel(population=0).values  # (radius, time)
+    r = ds["radius_um"].values
+    slope = np.log(m[-1, 0] / m[0, 0]) / np.log(r[-1] / r[0])
+    assert slope == pytest.approx(-6.0, abs=0.05)  # O(x²) Rayleigh corrections at x ≤ 0.36
+    np.testing.assert_allclose(m[:, 1] / m[:, 0], 0.5, rtol=1e-9)
+    (tmp_path / "s10.toml").write_text(raw_text.replace("detection_sigma = 5.0", "detection_sigma = 10.0"))
+    ds10 = run_sweep(load_scenario(tmp_path / "s10.toml"), tmp_path / "sw10.nc")
+    np.testing.assert_allclose(ds10["minimum_detectable_density_cm3"].values,
+                               2 * ds["minimum_detectable_density_cm3"].values, rtol=1e-12)
+    assert not (tmp_path / "sw.nc.chunks").exists()
+
+
+def test_sweep_cli_dask_identical_and_resume(tmp_path):
+    sc, path = scenario(tmp_path, extra=SWEEP)
+    serial = tmp_path / "serial.nc"
+    assert main(["sweep", str(path), "-o", str(serial), "--plot", str(tmp_path / "sw.png"), "-q"]) == 0
+    par = tmp_path / "par.nc"
+    assert main(["sweep", str(path), "-o", str(par), "--workers", "2", "-q"]) == 0
+    a = xr.open_dataset(serial, engine="h5netcdf")
+    b = xr.open_dataset(par, engine="h5netcdf")
+    xr.testing.assert_identical(a["minimum_detectable_density_cm3"], b["minimum_detectable_density_cm3"])
+    a.close()
+    b.close()
+
+
+def test_sweep_bad_key(tmp_path, capsys):
+    sc_text = SWEEP.replace('"instrument.integration_time_s"', '"instrument.exposure_hours"')
+    p = tmp_path / "s.toml"
+    p.write_text(textwrap.dedent(SCEN.replace("N0", "1e-7")) + sc_text)
+    assert main(["sweep", str(p), "-o", str(tmp_path / "x.nc")]) == 2
+    assert "instrument.exposure_hours" in capsys.readouterr().err
