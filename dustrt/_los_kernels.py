@@ -524,7 +524,7 @@ def integrate_rays_kernel(observers, looks, radius, top_altitude, kinds, params,
         ty = o[1] + st * v[1]
         tz = o[2] + st * v[2]
         tr = math.sqrt(tx * tx + ty * ty + tz * tz)
-        tan_alt[l] = tr - radius
+        tan_alt[l] = 0.0 if hits[l] else tr - radius
         tan_dist[l] = radius * math.asin(min(1.0, max(-1.0, tx / tr)))
         if misses or s1 <= s0:
             continue

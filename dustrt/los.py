@@ -215,8 +215,10 @@ def integrate_columns(
     if np.any(alt < 0.0):
         k = int(np.argmin(alt))
         raise ValueError(f"observer_km must be at or above the surface; row {k} is at altitude {alt[k]:.6g} km")
-    observers = np.ascontiguousarray(np.broadcast_to(observers, (n_rays, 3)), dtype=np.float64)
-    looks = np.ascontiguousarray(np.broadcast_to(looks, (n_rays, 3)), dtype=np.float64)
+    # fresh writable C arrays: one kernel signature whatever the caller passed (read-only
+    # or broadcast views would each compile a new specialisation)
+    observers = np.array(np.broadcast_to(observers, (n_rays, 3)), dtype=np.float64, order="C")
+    looks = np.array(np.broadcast_to(looks, (n_rays, 3)), dtype=np.float64, order="C")
 
     profiles = _as_profiles(profiles)
     packed = pack_profiles(profiles)
