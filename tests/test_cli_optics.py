@@ -137,3 +137,15 @@ def test_missing_scenario_file(tmp_path, capsys):
 
 def test_demo_optics_runs(tmp_path):
     assert main(["optics", "-o", str(tmp_path / "demo.nc"), "-q"]) == 0
+
+
+def test_shipped_scenarios_are_valid():
+    from importlib import resources
+    from pathlib import Path
+
+    data = Path(str(resources.files("dustrt") / "data"))
+    for name in ("demo_scenario.toml", "scenario_reference.toml"):
+        sc = load_scenario(data / name)
+        assert sc.populations and sc.observer is not None and sc.instrument is not None
+    for p in Path(__file__).parents[1].joinpath("configs").glob("*.toml"):
+        load_scenario(p)
