@@ -15,6 +15,8 @@ References
 [1] Piessens, R., de Doncker-Kapenga, E., Ueberhuber, C. W., Kahaner, D. K. (1983),
     QUADPACK: A Subroutine Package for Automatic Integration, Springer; routine QK15
     (Gauss-Kronrod 7-15 nodes and weights).
+[2] Kronrod, A. S. (1965), Nodes and Weights of Quadrature Formulas, Consultants Bureau,
+    New York (the 3-7 pair).
 """
 
 from __future__ import annotations
@@ -66,8 +68,8 @@ def _full_rule():
 
 GK_X, GK_WK, GK_WG = _full_rule()
 
-# [1] QK7-style pair used for the sunward columns: Gauss 3 embedded in Kronrod 7
-# (cheaper per panel; those columns only enter the small extinction correction).
+# [2] Gauss 3 / Kronrod 7 pair for the sunward columns N^sun (cheaper per panel; those
+# columns only enter the small extinction correction). Exactness is checked in the tests.
 _X7 = (0.960491268708020283423507092629080, 0.774596669241483377035853079956480,
        0.434243749346802558002071502844628, 0.0)
 _W7K = (0.104656226026467265193823857192073, 0.268488089868333440728569280666710,

@@ -486,7 +486,7 @@ _PROFILE_KEYS = {
 def _density(t: _Table):
     from dustrt import density
 
-    kind = t.string("profile", _REQUIRED, choices=tuple(density.PROFILE_KINDS))
+    kind = t.string("profile", _REQUIRED, choices=tuple(_PROFILE_KEYS) + ("table",))
     try:
         if kind == "table":
             p = t.path("file")
@@ -499,7 +499,7 @@ def _density(t: _Table):
             if v is not None:
                 params[key] = v
         t.finish("profile, " + ", ".join(k for k, _ in _PROFILE_KEYS[kind]))
-        return density.make_profile(kind, **params)
+        return density.make_profile(kind.replace("-", "_"), **params)
     except ScenarioError:
         raise
     except ValueError as exc:

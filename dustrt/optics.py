@@ -131,6 +131,10 @@ def _converged_nodes(size: SizeDistribution, wavelength_nm, m, rtol):
             np.max(np.abs(fine[1] - coarse[1]) / np.abs(total[1]), axis=1),
         )
         ok = err < _ACCEPT_FACTOR * rtol * (hi - lo) / span
+        if error + float(np.sum(err)) < rtol:
+            # global control: the remaining open panels' (coarse) errors already fit the budget;
+            # this stops the chase of ultra-narrow resonances of non-absorbing spheres
+            ok[:] = True
         if depth == _MAX_DEPTH and not ok.all():
             warn(
                 f"size quadrature not converged to {rtol:g} after {depth} panel halvings; "

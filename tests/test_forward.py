@@ -169,3 +169,14 @@ def test_nan_in_density_table(tmp_path, capsys):
     err = capsys.readouterr().err
     assert "grid.csv" in err and "population[1].density" in err
     assert not (tmp_path / "o.nc").exists()
+
+
+def test_power_law_profile_from_scenario(tmp_path):
+    s = scen(tmp_path, extra="")
+    text = (tmp_path / "s.toml").read_text().replace(
+        'density = { profile = "exponential", surface_density_cm3 = 1e-2, scale_height_km = 10.0 }',
+        'density = { profile = "power-law", surface_density_cm3 = 1e-2, reference_altitude_km = 5.0, exponent = 3.0 }')
+    (tmp_path / "p.toml").write_text(text)
+    prof = load_scenario(tmp_path / "p.toml").populations[0].density
+    assert prof.density_cm3(5.0, 0.0) == pytest.approx(1e-2 / 8)
+    assert s.populations[0].density.normalisation == 1e-2

@@ -319,6 +319,21 @@ def test_terminator_profile_matches_brute_force_quad():
         assert res.sunlit_column_cm2[0, k] == pytest.approx(ref, rel=1e-6)
 
 
+@pytest.mark.parametrize("rule, kronrod_degree, gauss_degree", [("GK", 23, 13), ("GK7", 11, 5)])
+def test_quadrature_rules_exact_for_polynomials(rule, kronrod_degree, gauss_degree):
+    # A (2n+1)-point Kronrod extension of n-point Gauss is exact to degree 3n+1 (3n+2 counting
+    # symmetry), Gauss to 2n-1 (Kronrod 1965; Piessens et al. 1983, QUADPACK).
+    from dustrt import _los_kernels as kern
+
+    x, wk, wg = (getattr(kern, f"{rule}_{name}") for name in ("X", "WK", "WG"))
+    for k in range(kronrod_degree + 1):
+        exact = (1 - (-1) ** (k + 1)) / (k + 1)
+        assert wk @ x**k == pytest.approx(exact, abs=1e-14)
+        if k <= gauss_degree:
+            assert wg @ x**k == pytest.approx(exact, abs=1e-14)
+    assert abs(wg @ x ** (gauss_degree + 1) - 2 / (gauss_degree + 2)) > 1e-6  # and no further
+
+
 # --- kernel densities vs numpy reference --------------------------------------------------------------
 
 

@@ -141,8 +141,17 @@ def test_cached_results_are_reused_and_read_only():
 @settings(max_examples=15, deadline=None)
 @given(n=st.floats(1.3, 2.0), k=st.floats(0.0, 0.5), med=st.floats(0.005, 1.0), sg=st.floats(1.1, 2.0))
 def test_property_population(n, k, med, sg):
-    o = population_optics(constant_material(n, k), LogNormal(med, sg, med / 3, min(3.0, med * 3)),
-                          [300.0, 700.0], np.linspace(0, 180, 19))
+    # Non-absorbing, high-index large spheres have ultra-narrow resonances that the size
+    # quadrature may not resolve to 1e-4 within its depth limit; it then warns (a documented
+    # limitation).  The physical properties below must hold regardless.
+    import warnings
+
+    from dustrt import DustrtWarning
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DustrtWarning)
+        o = population_optics(constant_material(n, k), LogNormal(med, sg, med / 3, min(3.0, med * 3)),
+                              [300.0, 700.0], np.linspace(0, 180, 19))
     assert np.all(o.scattering_cross_section_um2 > 0)
     assert np.all(o.extinction_cross_section_um2 >= o.scattering_cross_section_um2 * (1 - 1e-12))
     assert np.all((o.asymmetry_parameter > -1) & (o.asymmetry_parameter < 1))
