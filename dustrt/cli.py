@@ -31,8 +31,21 @@ def _say(args, message: str) -> None:
         print(message, file=sys.stderr)
 
 
-def _cmd_optics(args) -> int:
+def _finish(args, ds, figure: str | None = None) -> int:
+    """Write the Dataset (atomically) and, if asked, the named quick-look figure."""
     from dustrt import io
+
+    io.write_netcdf(ds, args.output)
+    _say(args, f"wrote {args.output}")
+    if figure and getattr(args, "plot", None):
+        from dustrt import plots
+
+        io.save_figure(getattr(plots, figure)(ds), args.plot)
+        _say(args, f"wrote {args.plot}")
+    return 0
+
+
+def _cmd_optics(args) -> int:
     from dustrt.optics import optics_dataset
 
     sc = _load(args.scenario)
@@ -41,73 +54,35 @@ def _cmd_optics(args) -> int:
                         progress=lambda name: _say(args, f"optics: population {name!r}"))
     ds.attrs["scenario"] = sc.text
     ds.attrs["scenario_source"] = sc.source
-    io.write_netcdf(ds, args.output)
-    _say(args, f"wrote {args.output}")
-    if args.plot:
-        from dustrt import plots
-
-        io.save_figure(plots.optics_figure(ds), args.plot)
-        _say(args, f"wrote {args.plot}")
-    return 0
+    return _finish(args, ds, "optics_figure")
 
 
 def _cmd_limb(args) -> int:
-    from dustrt import io
     from dustrt.forward import limb_dataset
 
-    sc = _load(args.scenario)
-    ds = limb_dataset(sc, progress=not args.quiet)
-    io.write_netcdf(ds, args.output)
-    _say(args, f"wrote {args.output}")
-    if args.plot:
-        from dustrt import plots
-
-        io.save_figure(plots.limb_figure(ds), args.plot)
-        _say(args, f"wrote {args.plot}")
-    return 0
+    return _finish(args, limb_dataset(_load(args.scenario), progress=not args.quiet), "limb_figure")
 
 
 def _cmd_observe(args) -> int:
-    from dustrt import io
     from dustrt.observe import observation_dataset
 
     sc = _load(args.scenario)
-    ds = observation_dataset(sc, realizations=args.realizations, seed=args.seed, progress=not args.quiet)
-    io.write_netcdf(ds, args.output)
-    _say(args, f"wrote {args.output}")
-    return 0
+    return _finish(args, observation_dataset(sc, realizations=args.realizations, seed=args.seed,
+                                             progress=not args.quiet))
 
 
 def _cmd_separate(args) -> int:
-    from dustrt import io
     from dustrt.separate import separate_file
 
-    sc = _load(args.scenario)
-    ds = separate_file(args.observation, sc, progress=not args.quiet)
-    io.write_netcdf(ds, args.output)
-    _say(args, f"wrote {args.output}")
-    if args.plot:
-        from dustrt import plots
-
-        io.save_figure(plots.separation_figure(ds), args.plot)
-        _say(args, f"wrote {args.plot}")
-    return 0
+    ds = separate_file(args.observation, _load(args.scenario), progress=not args.quiet)
+    return _finish(args, ds, "separation_figure")
 
 
 def _cmd_limit(args) -> int:
-    from dustrt import io
     from dustrt.limits import limits_file
 
-    sc = _load(args.scenario)
-    ds = limits_file(args.observation, sc, method=args.method, progress=not args.quiet)
-    io.write_netcdf(ds, args.output)
-    _say(args, f"wrote {args.output}")
-    if args.plot:
-        from dustrt import plots
-
-        io.save_figure(plots.limits_figure(ds), args.plot)
-        _say(args, f"wrote {args.plot}")
-    return 0
+    ds = limits_file(args.observation, _load(args.scenario), method=args.method, progress=not args.quiet)
+    return _finish(args, ds, "limits_figure")
 
 
 def _cmd_sweep(args) -> int:

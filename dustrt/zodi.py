@@ -25,15 +25,12 @@ cos ε = cos Δλ · cos β ([1] Eq. 11). The Moon's distance from the Earth
 
 References
 ----------
-.. [1] Leinert, Ch., et al. (1998), The 1997 reference of diffuse night sky
-   brightness, Astron. Astrophys. Suppl. Ser. 127, 1–99 (Table 17, Eq. 11,
-   Eq. 22, Table 19).
-.. [2] Hahn, J. M., Zook, H. A., Cooper, B., & Sunkara, B. (2002),
-   Clementine observations of the zodiacal light and the dust content of the
-   inner solar system, Icarus 158, 360–378 (Z ∝ ε^(-2.45 ± 0.05), ε ≈ 3–30°).
-.. [3] Leinert, Ch., Richter, I., Pitz, E., & Planck, B. (1981), The
-   zodiacal light from 1.0 to 0.3 A.U. as observed by the Helios space probes,
-   Astron. Astrophys. 103, 177–188 (I ∝ r^(-2.3 ± 0.05)).
+.. [1] Leinert, Ch., et al. (1998), Astron. Astrophys. Suppl. Ser. 127, 1–99
+   (Table 17, Eq. 11, Eq. 22, Table 19).
+.. [2] Hahn, J. M., Zook, H. A., Cooper, B., & Sunkara, B. (2002), Icarus 158,
+   360–378 (Z ∝ ε^(-2.45 ± 0.05), ε ≈ 3–30°).
+.. [3] Leinert, Ch., Richter, I., Pitz, E., & Planck, B. (1981), Astron.
+   Astrophys. 103, 177–188 (I ∝ r^(-2.3 ± 0.05)).
 """
 
 from __future__ import annotations
