@@ -16,7 +16,7 @@ References
 """
 
 import numpy as np
-from numba import njit
+from numba import njit, prange
 
 
 @njit(cache=True)
@@ -134,24 +134,25 @@ def amplitudes(x, m, mu, s1, s2):
         s2[a] = z2
 
 
-@njit(cache=True)
+@njit(cache=True, parallel=True)
 def weighted_intensities(x, m, weights, mu, i1_sum, i2_sum):
     """Accumulate sum_i weights[j, i] * |S1|^2 and |S2|^2 over sizes x[j, i].
 
     x: [W, N] size parameters; m: [W]; weights: [W, N]; mu: [A].
     Fills i1_sum, i2_sum [W, A].  The angular functions are computed once
     for the largest size and reused, so the cost per size is O(A * N_terms).
+    Wavelengths run in parallel threads (each has its own output row).
     """
     nw, ns = x.shape
     nmax = series_length(x.max()) + 2
-    an = np.zeros(nmax, dtype=np.complex128)
-    bn = np.zeros(nmax, dtype=np.complex128)
     pi_n = np.zeros((mu.size, nmax))
     tau_n = np.zeros((mu.size, nmax))
     angular_functions(mu, nmax, pi_n, tau_n)
-    coeff_a = np.zeros(nmax, dtype=np.complex128)
-    coeff_b = np.zeros(nmax, dtype=np.complex128)
-    for j in range(nw):
+    for j in prange(nw):
+        an = np.zeros(nmax, dtype=np.complex128)
+        bn = np.zeros(nmax, dtype=np.complex128)
+        coeff_a = np.zeros(nmax, dtype=np.complex128)
+        coeff_b = np.zeros(nmax, dtype=np.complex128)
         for a in range(mu.size):
             i1_sum[j, a] = 0.0
             i2_sum[j, a] = 0.0
@@ -166,12 +167,18 @@ def weighted_intensities(x, m, weights, mu, i1_sum, i2_sum):
                 coeff_a[k] = c * an[k]
                 coeff_b[k] = c * bn[k]
             for a in range(mu.size):
-                z1 = 0.0j
-                z2 = 0.0j
+                z1r = 0.0
+                z1i = 0.0
+                z2r = 0.0
+                z2i = 0.0
                 for k in range(nstop):
                     p = pi_n[a, k]
                     t = tau_n[a, k]
-                    z1 += coeff_a[k] * p + coeff_b[k] * t
-                    z2 += coeff_a[k] * t + coeff_b[k] * p
-                i1_sum[j, a] += w * (z1.real**2 + z1.imag**2)
-                i2_sum[j, a] += w * (z2.real**2 + z2.imag**2)
+                    ca = coeff_a[k]
+                    cb = coeff_b[k]
+                    z1r += ca.real * p + cb.real * t
+                    z1i += ca.imag * p + cb.imag * t
+                    z2r += ca.real * t + cb.real * p
+                    z2i += ca.imag * t + cb.imag * p
+                i1_sum[j, a] += w * (z1r * z1r + z1i * z1i)
+                i2_sum[j, a] += w * (z2r * z2r + z2i * z2i)

@@ -32,7 +32,7 @@ from dustrt.materials import Material
 from dustrt.sizes import Monodisperse, SizeDistribution, panel_quadrature
 
 DEFAULT_RELATIVE_TOLERANCE = 1e-4
-_START_PANELS = 8
+_START_PANELS = 4
 _MAX_DEPTH = 12
 # The difference coarse-vs-halves measures the coarse panel's error; the accepted
 # halves are far better (8-point Gauss–Legendre error falls ~2^-16 per halving for
