@@ -21,6 +21,14 @@ import numpy as np
 from dustrt import warn
 
 UM2_TO_CM2 = 1e-8
+#: IAU 2015 Resolution B3 nominal solar radius [km] and the astronomical unit [km].
+SOLAR_RADIUS_KM = 695700.0
+AU_KM = 149597870.7
+
+
+def solar_angular_radius_deg(distance_au: float) -> float:
+    """Apparent angular radius of the Sun seen from ``distance_au`` [deg]."""
+    return float(np.rad2deg(np.arcsin(SOLAR_RADIUS_KM / (distance_au * AU_KM))))
 #: Optical depth above which the first-order extinction expansion is poor.
 FIRST_ORDER_TAU_LIMIT = 0.1
 
@@ -243,6 +251,13 @@ def compute_limb(scenario, geometry: LimbGeometry | None = None, progress=False,
 RADIANCE_UNITS = "W m-2 sr-1 nm-1"
 
 
+def _solar_transmission(r: LimbResult, distance_au: float) -> np.ndarray:
+    """exp(-τ) where the line of sight points into the solar disk and does not end on the body."""
+    reaches = (r.columns.scattering_angle_deg <= solar_angular_radius_deg(distance_au)) & ~np.asarray(
+        r.columns.hits_surface, dtype=bool)
+    return np.where(reaches[:, None], np.exp(-r.optical_depth), np.nan)
+
+
 def limb_dataset(scenario, progress=False, result: LimbResult | None = None):
     """Run the limb model and package it as an xarray Dataset (CF-style attributes)."""
     import xarray as xr
@@ -272,6 +287,9 @@ def limb_dataset(scenario, progress=False, result: LimbResult | None = None):
             "column_cm2": (PL, c.column_cm2, {"units": "cm-2", "long_name": "grain column along the line of sight, shadow ignored"}),
             "optical_depth": (LW, r.optical_depth, {"units": "1", "long_name": "dust extinction optical depth along the whole line of "
                                                                                "sight (a solar-occultation view would see exp(-tau))"}),
+            "solar_transmission": (LW, _solar_transmission(r, scenario.sun_distance_au),
+                                   {"units": "1", "long_name": "transmission exp(-tau) of sunlight along views that reach "
+                                                               "the solar disk (NaN for other views)"}),
             "solar_irradiance": (("wavelength_nm",), r.solar_irradiance,
                                  {"units": "W m-2 nm-1", "long_name": "solar spectral irradiance at the body's distance"}),
             "scattering_cross_section": (("population", "wavelength_nm"), r.scattering_cross_section_um2,

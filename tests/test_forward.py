@@ -180,3 +180,27 @@ def test_power_law_profile_from_scenario(tmp_path):
     prof = load_scenario(tmp_path / "p.toml").populations[0].density
     assert prof.density_cm3(5.0, 0.0) == pytest.approx(1e-2 / 8)
     assert s.populations[0].density.normalisation == 1e-2
+
+
+def test_solar_occultation_transmission(tmp_path):
+    # A view straight at the Sun (look = +x) through the dust layer: its transmission is
+    # exp(-τ) with τ = Σ C_ext N (Beer–Lambert law); views that miss the solar disk get NaN.
+    # Solar angular radius 0.2666° at 1 AU from the IAU 2015 nominal radius 695,700 km.
+    from dustrt.forward import solar_angular_radius_deg
+
+    # asin(695700 / 149597870.7) = 0.266453° (computed); the classical solar semi-diameter 959.63" at 1 AU
+    # (Auwers 1891; recalled from memory) agrees to 0.05 %
+    assert solar_angular_radius_deg(1.0) == pytest.approx(0.266453, abs=1e-6)
+    assert solar_angular_radius_deg(1.0) * 3600 == pytest.approx(959.63, rel=5e-4)
+    extra = "\n"
+    s = scen(tmp_path, ext="true", n0="1e-1", extra=extra)
+    text = (tmp_path / "s.toml").read_text().replace(
+        "tangent_altitudes_km = [0.0, 5.0, 15.0, 30.0]\nazimuth_deg = 0.0",
+        "directions = [[1.0, 0.0, 0.0], [0.9, -0.43588989, 0.0]]")
+    (tmp_path / "d.toml").write_text(text)
+    s = load_scenario(tmp_path / "d.toml")
+    ds = limb_dataset(s)
+    t = ds["solar_transmission"].values
+    assert np.all(np.isnan(t[1]))
+    np.testing.assert_allclose(t[0], np.exp(-ds["optical_depth"].values[0]), rtol=1e-12)
+    assert np.all(t[0] < 1)
