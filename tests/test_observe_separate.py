@@ -292,3 +292,37 @@ def test_sweep_bad_key(tmp_path, capsys):
     p.write_text(textwrap.dedent(SCEN.replace("N0", "1e-7")) + sc_text)
     assert main(["sweep", str(p), "-o", str(tmp_path / "x.nc")]) == 2
     assert "instrument.exposure_hours" in capsys.readouterr().err
+
+
+def test_limit_with_radius_sweep_and_minimal_real_file(tmp_path):
+    # A "real" calibrated file holds only radiance, its uncertainty, the geometry and the
+    # wavelengths (no simulation extras; its bins differ from the model grid): the model is
+    # integrated onto the file's bins with the scenario's line-spread function.
+    sc, _ = scenario(tmp_path, n0="0.0", name="truth.toml")
+    sim = observation_dataset(sc, realizations=5, seed=21)
+    wl = sim["wavelength_nm"].values
+    minimal = xr.Dataset(
+        {"radiance": sim["radiance"], "radiance_uncertainty": sim["radiance_uncertainty"],
+         "look_direction": sim["look_direction"].isel(observation=0),
+         "observer_position_km": sim["observer_position_km"].isel(observation=0)},
+        coords={"wavelength_nm": wl})
+    path = tmp_path / "real.nc"
+    minimal.to_netcdf(path, engine="h5netcdf")
+    _, hyp = scenario(tmp_path, n0="1e-7", name="hyp.toml", extra="""
+        [sweep]
+        radius_um = { start = 0.01, stop = 0.3, num = 4, spacing = "log" }
+        detection_sigma = 3.0
+        """)
+    out = tmp_path / "lim.nc"
+    png = tmp_path / "lim.png"
+    assert main(["limit", str(path), "--scenario", str(hyp), "-o", str(out), "--plot", str(png), "-q",
+                 "--method", "bayesian-flat"]) == 0
+    ds = xr.open_dataset(out, engine="h5netcdf")
+    assert ds["density_upper_limit_cm3"].shape == (1, 4)
+    np.testing.assert_allclose(ds["radius_um"], np.geomspace(0.01, 0.3, 4))
+    # smaller grains scatter less per grain: the limit on their density is higher
+    assert np.all(np.diff(ds["density_upper_limit_cm3"].values[0]) < 0)
+    assert "flat prior" in ds.attrs["method_description"]
+    assert np.all(ds["density_lower_limit_cm3"].values == 0)
+    assert png.stat().st_size > 1000
+    ds.close()
