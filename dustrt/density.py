@@ -541,3 +541,16 @@ def pack_profiles(profiles) -> PackedProfiles:
         return np.ascontiguousarray(np.concatenate(parts) if parts else np.zeros(0), dtype=np.float64)
 
     return PackedProfiles(kinds, params, index, cat(alts), cat(dists), cat(vals))
+
+
+def reference_density_cm3(profile) -> float:
+    """The profile's density normalisation expressed in grains per cm³.
+
+    Analytic profiles: ``surface_density_cm3`` (the density at the surface, at the
+    terminator peak for the terminator profile).  Table profiles: the largest density
+    of the scaled grid.  Radiance is linear in this number, so limits and detectability
+    on it are limits on the whole profile shape scaled up or down.
+    """
+    if isinstance(profile, TableProfile):
+        return float(profile.scale * np.max(profile.density_grid_cm3))
+    return float(profile.surface_density_cm3)

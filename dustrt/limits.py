@@ -1,7 +1,8 @@
 """Upper limits on grain density from a (non-)detection.
 
 Radiance is linear in a population's density normalisation n0 (its
-``surface_density_cm3``, or the ``scale`` of a table profile), so the
+``surface_density_cm3``; for a table profile the peak density of the scaled
+grid, :func:`dustrt.density.reference_density_cm3`), so the
 separation fit's unconstrained dust amplitude x (in units of the hypothesised
 n0), with its marginal uncertainty σ (zodiacal amplitude and colour slope
 profiled out as nuisance parameters, exact for a linear Gaussian model), is a
@@ -22,6 +23,8 @@ References
 from __future__ import annotations
 
 import numpy as np
+
+from dustrt.density import reference_density_cm3
 
 from dustrt import statistics
 
@@ -121,7 +124,7 @@ def limits_file(observation_path, scenario, method=None, progress=False):
     for sc in it:
         templates = build_templates(sc, spectra)
         fits = separate(sc, spectra, templates)
-        n0 = [p.density.normalisation for p in sc.populations]
+        n0 = [reference_density_cm3(p.density) for p in sc.populations]
         results.append(density_limits(fits, n0, conf, method))
     stack = {k: np.stack([r[k] for r in results], axis=1) for k in results[0]}  # (P, S, ...)
     detect_sigma = scenario.sweep.detection_sigma if scenario.sweep is not None else 5.0

@@ -30,6 +30,8 @@ from pathlib import Path
 
 import numpy as np
 
+from dustrt.density import reference_density_cm3
+
 from dustrt.forward import RADIANCE_UNITS, LimbGeometry
 
 REFERENCE_WAVELENGTH_NM = 500.0
@@ -267,7 +269,7 @@ def separate_file(observation_path, scenario, progress=False):
     f = templates.solar_irradiance
     zod = templates.zodiacal[templates.ray_index]
     names = [p.name for p in scenario.populations]
-    n0 = np.array([p.density.normalisation for p in scenario.populations])
+    n0 = np.array([reference_density_cm3(p.density) for p in scenario.populations])
     a = np.stack([ft.amplitudes for ft in fits])  # (P, O, L, K)
     cov = np.stack([ft.covariance for ft in fits])
     a_nn = np.stack([ft.amplitudes_nonneg for ft in fits])

@@ -29,6 +29,8 @@ from pathlib import Path
 
 import numpy as np
 
+from dustrt.density import reference_density_cm3
+
 OUTPUT_KEYS = ("minimum_detectable_density_cm3", "snr_per_unit_density", "colour_ratio_dust",
                "colour_ratio_zodiacal")
 
@@ -81,7 +83,7 @@ def detectability(scenario, detection_sigma: float):
         var_amp = cov[:, -1, -1]
         ok = np.isfinite(var_amp) & (var_amp > 0) & (np.abs(dust).sum(axis=-1) > 0)
         inv = np.where(ok, 1.0 / np.where(ok, var_amp, 1.0), 0.0).sum()
-        n0 = pop.density.normalisation
+        n0 = reference_density_cm3(pop.density)
         sigma_n = n0 / np.sqrt(inv) if inv > 0 else np.inf
         out["minimum_detectable_density_cm3"].append(detection_sigma * sigma_n)
         out["snr_per_unit_density"].append(1.0 / sigma_n)

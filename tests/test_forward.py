@@ -204,3 +204,11 @@ def test_solar_occultation_transmission(tmp_path):
     assert np.all(np.isnan(t[1]))
     np.testing.assert_allclose(t[0], np.exp(-ds["optical_depth"].values[0]), rtol=1e-12)
     assert np.all(t[0] < 1)
+
+
+def test_reference_density_of_profiles():
+    from dustrt.density import ExponentialProfile, TableProfile, reference_density_cm3
+
+    assert reference_density_cm3(ExponentialProfile(3e-4, 10.0)) == 3e-4
+    t = TableProfile(np.array([0.0, 10.0]), np.array([-50.0, 50.0]), np.array([[1e-4, 4e-4], [1e-5, 2e-5]]), scale=2.0)
+    assert reference_density_cm3(t) == pytest.approx(8e-4)
