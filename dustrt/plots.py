@@ -116,10 +116,10 @@ def sweep_figure(ds):
         fig, axes = plt.subplots(1, ds.sizes["population"], figsize=(6 * ds.sizes["population"], 4.5), squeeze=False)
         for ax, p in zip(axes[0], ds["population"].values):
             z = var.sel(population=p).transpose(dims[1], dims[0])
-            logx = "radius" in dims[0]
             mesh = ax.pcolormesh(ds[dims[0]], ds[dims[1]], np.log10(z), shading="auto")
-            if logx:
-                ax.set_xscale("log")
+            for values, setter in ((ds[dims[0]].values, ax.set_xscale), (ds[dims[1]].values, ax.set_yscale)):
+                if np.all(values > 0) and values.max() / values.min() >= 10:
+                    setter("log")  # geometric grids read better on a log axis
             fig.colorbar(mesh, ax=ax, label="log10 minimum detectable density [cm⁻³]")
             ax.set_xlabel(f"{ds[dims[0]].attrs.get('sweep_key', dims[0])} [{ds[dims[0]].attrs.get('units', '')}]")
             ax.set_ylabel(f"{ds[dims[1]].attrs.get('sweep_key', dims[1])} [{ds[dims[1]].attrs.get('units', '')}]")
