@@ -69,19 +69,32 @@ def limb_figure(ds):
 
 
 def limits_figure(ds):
-    """Upper limit vs grain radius (log-log) with the detection threshold."""
+    """Upper limit vs grain radius (log-log) with the detection threshold; detections as intervals."""
     plt = _plt()
     fig, ax = plt.subplots(figsize=(6.5, 4.5))
     r = ds["radius_um"].values
-    for p in ds["population"].values:
+    for i, p in enumerate(ds["population"].values):
+        color = f"C{i}"
         sel = ds.sel(population=p)
-        (line,) = ax.loglog(r, sel["density_upper_limit_cm3"], marker="o", ms=3,
-                            label=f"{p}: upper limit ({ds.attrs['confidence']:g} CL)")
-        ax.loglog(r, sel["detection_threshold_density_cm3"], ls="--", color=line.get_color(),
-                  label=f"{p}: {ds.attrs['detection_sigma']:g}σ detection threshold")
+        up = sel["density_upper_limit_cm3"].values
+        lo = sel["density_lower_limit_cm3"].values
+        two = sel["two_sided"].values.astype(bool)
+        if (~two).any():
+            ax.plot(r[~two], up[~two], marker="v", ms=5, color=color,
+                    label=f"{p}: upper limit ({ds.attrs['confidence']:g} CL)")
+        ax.plot(r, sel["detection_threshold_density_cm3"], ls="--", marker=".", color=color,
+                label=f"{p}: {ds.attrs['detection_sigma']:g}σ detection threshold")
+        if two.any():
+            mid = np.sqrt(lo[two] * up[two])
+            ax.errorbar(r[two], mid, yerr=[mid - lo[two], up[two] - mid], fmt="o", ms=4, capsize=3,
+                        color=color, label=f"{p}: detection, {ds.attrs['confidence']:g} CL interval")
+    ax.set_xscale("log")
+    ax.set_yscale("log")
+    if r.size == 1:
+        ax.set_xlim(r[0] / 2, r[0] * 2)
     ax.set_xlabel("grain radius [µm]")
     ax.set_ylabel("density normalisation [cm⁻³]")
-    ax.set_title(f"upper limits ({ds.attrs['method']})", fontsize=10)
+    ax.set_title(f"density limits ({ds.attrs['method']})", fontsize=10)
     ax.legend(fontsize=7)
     return fig
 
