@@ -62,28 +62,60 @@ def interval(x, sigma, confidence, method):
     return lo, hi
 
 
-def density_limits(fits, normalisation_cm3, confidence, method):
-    """Per-observation and joint limits for each population's fit.
+def joint_over_lines_of_sight(x, sigma):
+    """Inverse-variance combination over the last axis (lines of sight), NaN-aware; (…,) arrays."""
+    x = np.asarray(x, dtype=float)
+    s = np.asarray(sigma, dtype=float)
+    ok = np.isfinite(x) & np.isfinite(s) & (s > 0)
+    w = np.where(ok, 1.0 / np.where(ok, s, 1.0) ** 2, 0.0)
+    wsum = w.sum(axis=-1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        jx = np.where(wsum > 0, (w * np.where(ok, x, 0.0)).sum(axis=-1) / np.where(wsum > 0, wsum, 1.0), np.nan)
+        js = np.where(wsum > 0, 1.0 / np.sqrt(np.where(wsum > 0, wsum, 1.0)), np.nan)
+    return jx, js
 
-    Returns a dict of arrays: per-spectrum (P, O, L) and joint (P,) values in cm⁻³.
+
+def density_limits(fits, normalisation_cm3, confidence, method):
+    """Per-spectrum, per-observation (lines of sight combined) and joint limits for each fit.
+
+    Returns a dict of arrays in cm⁻³: per spectrum (P, O, L), per observation (P, O), joint (P,).
     """
-    out = {k: [] for k in ("lower", "upper", "sig", "x", "sigma", "j_lower", "j_upper", "j_sig", "j_x", "j_sigma")}
+    keys = ("lower", "upper", "sig", "x", "sigma", "chi2",
+            "o_lower", "o_upper", "o_sig", "o_x", "o_sigma",
+            "j_lower", "j_upper", "j_sig", "j_x", "j_sigma")
+    out = {k: [] for k in keys}
     for fit, n0 in zip(fits, normalisation_cm3):
         x, s = fit.dust_amplitude, fit.dust_sigma
         lo, hi = interval(x, s, confidence, method)
+        ox, os_ = joint_over_lines_of_sight(x, s)
+        olo, ohi = interval(ox, os_, confidence, method)
         jx, js = joint_estimate(x, s)
         jlo, jhi = interval(np.array([jx]), np.array([js]), confidence, method)
-        out["lower"].append(lo * n0)
-        out["upper"].append(hi * n0)
-        out["sig"].append(x / s)
-        out["x"].append(x * n0)
-        out["sigma"].append(s * n0)
-        out["j_lower"].append(jlo[0] * n0)
-        out["j_upper"].append(jhi[0] * n0)
-        out["j_sig"].append(jx / js if np.isfinite(js) else np.nan)
-        out["j_x"].append(jx * n0)
-        out["j_sigma"].append(js * n0)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            chi2 = fit.chi2 / np.where(fit.dof > 0, fit.dof, np.nan)
+        for k, v in (("lower", lo * n0), ("upper", hi * n0), ("sig", x / s), ("x", x * n0), ("sigma", s * n0),
+                     ("chi2", chi2), ("o_lower", olo * n0), ("o_upper", ohi * n0), ("o_sig", ox / os_),
+                     ("o_x", ox * n0), ("o_sigma", os_ * n0), ("j_lower", jlo[0] * n0), ("j_upper", jhi[0] * n0),
+                     ("j_sig", jx / js if np.isfinite(js) else np.nan), ("j_x", jx * n0), ("j_sigma", js * n0)):
+            out[k].append(v)
     return {k: np.array(v) for k, v in out.items()}
+
+
+def _check_fit_quality(chi2_nu, dof, source):
+    """Warn when many spectra are fit badly: the templates do not describe the data."""
+    from scipy.stats import chi2 as chi2_dist
+
+    ok = np.isfinite(chi2_nu) & (dof > 0)
+    if not ok.any():
+        return
+    p = chi2_dist.sf(chi2_nu[ok] * dof[ok], dof[ok])
+    bad = float(np.mean(p < 1e-3))
+    if bad > 0.1:
+        from dustrt import warn
+
+        warn(f"{source}: {100 * bad:.0f} % of spectra have a chi-square p-value below 1e-3 (median reduced "
+             f"chi-square {np.median(chi2_nu[ok]):.3g}); the zodiacal + dust model does not describe the data, "
+             "so the limits are not reliable")
 
 
 def _with_radius(scenario, radius_um):
@@ -114,6 +146,12 @@ def limits_file(observation_path, scenario, method=None, progress=False):
         for key, values in scenario.sweep.axes:
             if key == "radius_um":
                 radii = values
+    other = [k for k, _ in scenario.sweep.axes if k != "radius_um"] if scenario.sweep is not None else []
+    if other:
+        from dustrt import warn
+
+        warn(f"{scenario.source}: dustrt limit sweeps only radius_um; swept keys {', '.join(other)} are ignored "
+             "(their scenario values are used)")
     variants = [scenario] if radii is None else [_with_radius(scenario, r) for r in radii]
     results = []
     it = variants
@@ -126,12 +164,16 @@ def limits_file(observation_path, scenario, method=None, progress=False):
         fits = separate(sc, spectra, templates)
         n0 = [reference_density_cm3(p.density) for p in sc.populations]
         results.append(density_limits(fits, n0, conf, method))
+        for fit in fits:
+            with np.errstate(invalid="ignore", divide="ignore"):
+                _check_fit_quality(fit.chi2 / np.where(fit.dof > 0, fit.dof, np.nan), fit.dof, spectra.source)
     stack = {k: np.stack([r[k] for r in results], axis=1) for k in results[0]}  # (P, S, ...)
     detect_sigma = scenario.sweep.detection_sigma if scenario.sweep is not None else 5.0
     names = [p.name for p in scenario.populations]
     radius = np.array(radii if radii is not None else [p.size.characteristic_radius_um for p in scenario.populations][:1])
     PS = ("population", "grain_radius")
-    PSOL = PS + ("observation", "line_of_sight")
+    PSO = PS + ("observation",)
+    PSOL = PSO + ("line_of_sight",)
     detected = np.nan_to_num(stack["j_lower"]) > 0
     ds = xr.Dataset(
         {
@@ -142,11 +184,17 @@ def limits_file(observation_path, scenario, method=None, progress=False):
             "density_uncertainty_cm3": (PS, stack["j_sigma"], {"units": "cm-3", "long_name": "1-sigma uncertainty of the joint estimate"}),
             "detection_threshold_density_cm3": (PS, detect_sigma * stack["j_sigma"], {"units": "cm-3", "long_name": f"density giving a {detect_sigma:g}-sigma expected excess"}),
             "two_sided": (PS, detected.astype(np.int8), {"units": "1", "long_name": "1 where the interval excludes zero (a detection: two-sided interval)"}),
-            "observation_upper_limit_cm3": (PSOL, stack["upper"], {"units": "cm-3", "long_name": "per-observation upper limit"}),
-            "observation_lower_limit_cm3": (PSOL, np.nan_to_num(stack["lower"]), {"units": "cm-3", "long_name": "per-observation lower limit"}),
-            "observation_significance": (PSOL, stack["sig"], {"units": "1", "long_name": "per-observation dust excess significance in sigma"}),
-            "observation_density_estimate_cm3": (PSOL, stack["x"], {"units": "cm-3", "long_name": "per-observation unconstrained density estimate"}),
-            "observation_density_uncertainty_cm3": (PSOL, stack["sigma"], {"units": "cm-3", "long_name": "per-observation 1-sigma uncertainty"}),
+            "observation_upper_limit_cm3": (PSO, stack["o_upper"], {"units": "cm-3", "long_name": "upper limit per observation (its lines of sight combined)"}),
+            "observation_lower_limit_cm3": (PSO, np.nan_to_num(stack["o_lower"]), {"units": "cm-3", "long_name": "lower limit per observation (its lines of sight combined)"}),
+            "observation_significance": (PSO, stack["o_sig"], {"units": "1", "long_name": "dust excess significance per observation in sigma"}),
+            "observation_density_estimate_cm3": (PSO, stack["o_x"], {"units": "cm-3", "long_name": "unconstrained density estimate per observation"}),
+            "observation_density_uncertainty_cm3": (PSO, stack["o_sigma"], {"units": "cm-3", "long_name": "1-sigma uncertainty per observation"}),
+            "spectrum_upper_limit_cm3": (PSOL, stack["upper"], {"units": "cm-3", "long_name": "upper limit per spectrum (one observation, one line of sight)"}),
+            "spectrum_lower_limit_cm3": (PSOL, np.nan_to_num(stack["lower"]), {"units": "cm-3", "long_name": "lower limit per spectrum"}),
+            "spectrum_significance": (PSOL, stack["sig"], {"units": "1", "long_name": "dust excess significance per spectrum in sigma"}),
+            "spectrum_density_estimate_cm3": (PSOL, stack["x"], {"units": "cm-3", "long_name": "unconstrained density estimate per spectrum"}),
+            "spectrum_density_uncertainty_cm3": (PSOL, stack["sigma"], {"units": "cm-3", "long_name": "1-sigma uncertainty per spectrum"}),
+            "spectrum_reduced_chi2": (PSOL, stack["chi2"], {"units": "1", "long_name": "reduced chi-square of the separation fit per spectrum"}),
         },
         coords={
             "population": ("population", names, {"long_name": "hypothesised grain population"}),
@@ -161,6 +209,8 @@ def limits_file(observation_path, scenario, method=None, progress=False):
                "detection_sigma": detect_sigma, "observation_file": str(observation_path),
                "scenario": scenario.text, "ignored_nan_bins": spectra.n_nan,
                "ignored_masked_bins": spectra.n_file_masked,
+               "joint_combination": "all spectra of the file (every observation and line of sight); for simulated "
+                                    "noise realisations of one scene this equals one exposure as long as all of them",
                "note": "model predictions for science planning; not a safety specification"},
     )
     return ds

@@ -32,6 +32,7 @@ import numpy as np
 
 from dustrt.density import reference_density_cm3
 
+from dustrt import warn
 from dustrt.forward import RADIANCE_UNITS, LimbGeometry
 
 REFERENCE_WAVELENGTH_NM = 500.0
@@ -68,14 +69,27 @@ def read_observation(path, scenario=None) -> ObservedSpectra:
     rad = ds["radiance"]
     if set(rad.dims) != set(want):
         raise ValueError(f"{path}: variable 'radiance' must have dimensions {want}, has {rad.dims}")
-    rad = rad.transpose(*want).values.astype(float)
-    unc = ds["radiance_uncertainty"].transpose(*want).values.astype(float)
+    if "wavelength_nm" not in ds.coords:
+        raise ValueError(f"{path}: coordinate 'wavelength_nm' (bin centres in nm) is missing")
+    rad = rad.transpose(*want)
+
+    def aligned(name):
+        v = ds[name]
+        if not set(v.dims) <= set(want):
+            raise ValueError(f"{path}: variable {name!r} has dimensions {v.dims}; allowed: a subset of {want}")
+        try:
+            return v.broadcast_like(rad).transpose(*want).values
+        except (ValueError, TypeError) as exc:
+            raise ValueError(f"{path}: variable {name!r} does not match 'radiance' ({exc})") from None
+
+    unc = aligned("radiance_uncertainty").astype(float)
+    rad = rad.values.astype(float)
     wl = ds["wavelength_nm"].values.astype(float)
-    if wl.size < 2 or np.any(np.diff(wl) <= 0):
-        raise ValueError(f"{path}: coordinate 'wavelength_nm' must be strictly increasing")
+    if wl.size < 2 or not np.all(np.isfinite(wl)) or np.any(np.diff(wl) <= 0):
+        raise ValueError(f"{path}: coordinate 'wavelength_nm' must be finite and strictly increasing")
     masked = np.zeros(rad.shape, dtype=bool)
     if "radiance_mask" in ds.variables:
-        masked = np.broadcast_to(ds["radiance_mask"].values != 0, rad.shape).copy()
+        masked = aligned("radiance_mask") != 0
     nan = ~np.isfinite(rad)
     usable = ~nan & ~masked
     bad = usable & ~(np.isfinite(unc) & (unc > 0))
@@ -99,8 +113,25 @@ def read_observation(path, scenario=None) -> ObservedSpectra:
     obs = geo("observer_position_km")
     if not (np.all(np.isfinite(looks)) and np.all(np.isfinite(obs))):
         raise ValueError(f"{path}: geometry variables must be finite")
-    width = float(ds.attrs["bin_width_nm"]) if "bin_width_nm" in ds.attrs else None
-    fwhm = float(ds.attrs["resolution_fwhm_nm"]) if "resolution_fwhm_nm" in ds.attrs else None
+    def attr(name):
+        if name not in ds.attrs:
+            return None
+        try:
+            v = float(np.asarray(ds.attrs[name]).ravel()[0])
+        except (TypeError, ValueError, IndexError):
+            v = np.nan
+        if not (np.isfinite(v) and v >= 0):
+            raise ValueError(f"{path}: attribute {name!r} must be a number >= 0, got {ds.attrs[name]!r}")
+        return v
+
+    width = attr("bin_width_nm")
+    fwhm = attr("resolution_fwhm_nm")
+    fov = attr("field_of_view_deg")
+    if scenario is not None and fov is not None and scenario.instrument is not None:
+        model_fov = scenario.instrument.instrument.field_of_view_deg
+        if scenario.instrument.field_of_view_rings > 0 and abs(model_fov - fov) > 1e-6 * max(fov, 1e-12):
+            warn(f"{path}: the file's field_of_view_deg ({fov:g}) differs from the scenario's "
+                 f"({model_fov:g}); the scenario's is used for the model templates")
     return ObservedSpectra(source=str(path), wavelength_nm=wl, radiance=rad, uncertainty=unc, usable=usable,
                            observer_km=np.ascontiguousarray(obs), look_direction=np.ascontiguousarray(looks),
                            bin_width_nm=width, resolution_fwhm_nm=fwhm, n_nan=int(nan.sum()),
@@ -152,6 +183,15 @@ def _lsf(scenario, spectra, width, fwhm):
     return float(width), float(fwhm)
 
 
+def window_mask(scenario, wavelength_nm) -> np.ndarray:
+    """True for bins outside the masked windows ([separation] mask_nm)."""
+    wl = np.asarray(wavelength_nm)
+    keep = np.ones(wl.shape, dtype=bool)
+    for lo, hi in scenario.separation.mask_nm:
+        keep &= ~((wl >= lo) & (wl <= hi))
+    return keep
+
+
 def fit_mask(scenario, wavelength_nm) -> np.ndarray:
     """Bins used by the fit: inside the fit bands (all if none) and outside the masked windows."""
     sep = scenario.separation
@@ -161,9 +201,7 @@ def fit_mask(scenario, wavelength_nm) -> np.ndarray:
         use = np.zeros(wl.shape, dtype=bool)
         for lo, hi in sep.fit_bands_nm:
             use |= (wl >= lo) & (wl <= hi)
-    for lo, hi in sep.mask_nm:
-        use &= ~((wl >= lo) & (wl <= hi))
-    return use
+    return use & window_mask(scenario, wl)
 
 
 @dataclass(frozen=True)
@@ -265,6 +303,7 @@ def separate_file(observation_path, scenario, progress=False):
     fits = separate(scenario, spectra, templates)
     sep = scenario.separation
     use = spectra.usable & fit_mask(scenario, spectra.wavelength_nm)
+    colour_use = spectra.usable & window_mask(scenario, spectra.wavelength_nm)
     wl = spectra.wavelength_nm
     f = templates.solar_irradiance
     zod = templates.zodiacal[templates.ray_index]
@@ -298,9 +337,11 @@ def separate_file(observation_path, scenario, progress=False):
             "observed_uncertainty": (("observation", "line_of_sight", "wavelength_nm"), spectra.uncertainty, {"units": RADIANCE_UNITS, "long_name": "observed radiance uncertainty"}),
             "fit_mask": (("observation", "line_of_sight", "wavelength_nm"), use.astype(np.int8), {"units": "1", "long_name": "1 where the bin entered the fit"}),
             "reduced_chi2": (POL, np.stack([ft.chi2 / np.where(ft.dof > 0, ft.dof, np.nan) for ft in fits]), {"units": "1", "long_name": "reduced chi-square of the fit"}),
-            "colour_ratio_observed": (("observation", "line_of_sight"), colour_ratio(spectra.radiance, f, wl, blue, red, use), {"units": "1", "long_name": "blue/red ratio of solar-normalised observed radiance"}),
-            "colour_ratio_zodiacal": (POL, colour_ratio(zod_fit, f, wl, blue, red), {"units": "1", "long_name": "blue/red ratio of the solar-normalised zodiacal component"}),
-            "colour_ratio_dust": (("population", "observation", "line_of_sight"), colour_ratio(dust_unit, f, wl, blue, red), {"units": "1", "long_name": "blue/red ratio of the solar-normalised dust template"}),
+            # one bin selection for all colour ratios: usable data outside the masked windows
+            # (the fit bands do not restrict the colour bands)
+            "colour_ratio_observed": (("observation", "line_of_sight"), colour_ratio(spectra.radiance, f, wl, blue, red, colour_use), {"units": "1", "long_name": "blue/red ratio of solar-normalised observed radiance"}),
+            "colour_ratio_zodiacal": (POL, colour_ratio(zod_fit, f, wl, blue, red, colour_use), {"units": "1", "long_name": "blue/red ratio of the solar-normalised zodiacal component"}),
+            "colour_ratio_dust": (("population", "observation", "line_of_sight"), colour_ratio(dust_unit, f, wl, blue, red, colour_use), {"units": "1", "long_name": "blue/red ratio of the solar-normalised dust template"}),
         },
         coords={
             "population": ("population", names, {"long_name": "hypothesised grain population"}),

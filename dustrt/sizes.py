@@ -127,8 +127,12 @@ class LogNormal:
         return self.median_radius_um
 
     def with_radius(self, radius_um: float) -> "LogNormal":
-        """Copy with a new median; explicit bounds are kept, default bounds follow the median."""
-        return replace(self, median_radius_um=float(radius_um))
+        """Copy with a new median; explicit bounds move with it (same ratios to the median),
+        default bounds follow from the new median."""
+        f = float(radius_um) / self.median_radius_um
+        lo = None if self.min_radius_um is None else self.min_radius_um * f
+        hi = None if self.max_radius_um is None else self.max_radius_um * f
+        return replace(self, median_radius_um=float(radius_um), min_radius_um=lo, max_radius_um=hi)
 
     def _norm(self) -> float:
         s = np.log(self.sigma_g)

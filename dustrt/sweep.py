@@ -1,12 +1,13 @@
 """Detectability sweeps: minimum detectable density over a parameter grid.
 
-For every grid point and population, the expected (noise-free, Asimov) colour
+For every grid point and population, the expected (noise-free, "Asimov") colour
 fit of zodiacal light [+ colour slope] + dust template gives the marginal
-uncertainty σ_n of the dust density normalisation from the Fisher matrix of
-the weighted least-squares problem, with the noise of the dust-free sky (the
-significance of an excess is judged under the null hypothesis of no dust).
-All lines of sight of the scan are combined (inverse-variance, each with its
-own zodiacal nuisance terms), and
+uncertainty σ_n of the dust density normalisation from the covariance of the
+weighted least-squares problem (the same solver as ``dustrt separate``), with
+the noise of the dust-free sky (the significance of an excess is judged under
+the null hypothesis of no dust).  All limb lines of sight of the scan are
+combined (inverse-variance, each with its own zodiacal nuisance terms; views
+ending on the surface are left out as in the separation), and
 
     n_min = detection_sigma · σ_n        [cm⁻³]
 
@@ -56,7 +57,7 @@ def detectability(scenario, detection_sigma: float):
     """Minimum detectable density and related figures for one scenario; arrays over populations."""
     from dustrt.instrument import expected_counts
     from dustrt.observe import binned_limb
-    from dustrt.separate import colour_ratio, design_matrix, fit_mask
+    from dustrt.separate import colour_ratio, design_matrix, fit_mask, fit_spectra
 
     scenario.require_limb()
     scenario.require_instrument()
@@ -66,22 +67,20 @@ def detectability(scenario, detection_sigma: float):
     background = b.zodiacal_radiance + b.surface_radiance  # (L, B) dust-free sky
     sigma = expected_counts(background, wl, inst).radiance_uncertainty
     use = fit_mask(scenario, wl)[None, :] & np.isfinite(sigma) & (sigma > 0)
-    w = np.where(use, 1.0 / np.where(use, sigma, 1.0) ** 2, 0.0)  # (L, B)
+    hits = np.asarray(b.limb.columns.hits_surface, dtype=bool)
     sep = scenario.separation
     out = {k: [] for k in OUTPUT_KEYS}
     zod_sum = b.zodiacal_radiance.sum(axis=0)
     for p, pop in enumerate(scenario.populations):
         dust = b.population_radiance[p]  # (L, B) at the hypothesised density
         x = design_matrix(b.zodiacal_radiance, dust, wl, sep.free_colour_slope)  # (L, K, B)
-        scale = np.max(np.abs(x), axis=-1)
-        scale = np.where(scale > 0, scale, 1.0)
-        xs = x / scale[..., None]
-        fisher = np.einsum("lib,ljb,lb->lij", xs, xs, w)
-        # pseudo-inverse: a view that ends on the dark surface has no zodiacal term,
-        # and its dust amplitude decouples (variance 1/F_dd)
-        cov = np.linalg.pinv(fisher, rcond=1e-12, hermitian=True) / (scale[..., :, None] * scale[..., None, :])
+        # Expected covariance of the fit (data values do not enter it).  The same solver as
+        # the separation: views that end on the surface (no zodiacal light there, surface not
+        # modelled) or whose dust and zodiacal templates are degenerate come back NaN and are
+        # left out, exactly as `dustrt separate` and `dustrt limit` leave them out.
+        cov = fit_spectra(np.zeros(dust.shape), np.where(use, sigma, 1.0), x, use & ~hits[:, None])[1]
         var_amp = cov[:, -1, -1]
-        ok = np.isfinite(var_amp) & (var_amp > 0) & (np.abs(dust).sum(axis=-1) > 0)
+        ok = np.isfinite(var_amp) & (var_amp > 0) & ~hits
         inv = np.where(ok, 1.0 / np.where(ok, var_amp, 1.0), 0.0).sum()
         n0 = reference_density_cm3(pop.density)
         sigma_n = n0 / np.sqrt(inv) if inv > 0 else np.inf
@@ -184,8 +183,9 @@ def sweep_dataset(scenario, spec, res):
     ds = xr.Dataset(
         {
             "minimum_detectable_density_cm3": (pd, arrange(res["minimum_detectable_density_cm3"]),
-                                               {"units": "cm-3", "long_name": f"density normalisation giving a "
-                                                f"{spec['detection_sigma']:g}-sigma dust excess after the colour separation"}),
+                                               {"units": "cm-3", "long_name": f"density normalisation whose expected (noise-free) dust excess after "
+                                                f"the colour separation is {spec['detection_sigma']:g} sigma (about 50 % "
+                                                "detection probability at that threshold)"}),
             "snr_per_unit_density": (pd, arrange(res["snr_per_unit_density"]),
                                      {"units": "cm3", "long_name": "expected dust excess significance per unit density normalisation"}),
             "colour_ratio_dust": (pd, arrange(res["colour_ratio_dust"]),

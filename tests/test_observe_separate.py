@@ -189,7 +189,7 @@ def test_limits_cli_and_coverage(tmp_path):
     ds = xr.open_dataset(out, engine="h5netcdf")
     assert ds.attrs["confidence"] == 0.95
     assert "Feldman" in ds.attrs["method_description"]
-    up = ds["observation_upper_limit_cm3"].values.ravel()
+    up = ds["spectrum_upper_limit_cm3"].values.ravel()
     n = up.size
     cover = np.mean(up >= 0.0)
     assert cover == 1.0  # the truth is the boundary: every FC interval contains zero...
@@ -198,11 +198,16 @@ def test_limits_cli_and_coverage(tmp_path):
     fit, path, hyp_path = _separate(tmp_path, "2e-8", 400, seed=12)
     assert main(["limit", str(path), "--scenario", str(hyp_path), "-o", str(out), "-q"]) == 0
     ds = xr.open_dataset(out, engine="h5netcdf")
-    lo = ds["observation_lower_limit_cm3"].values.ravel()
-    up = ds["observation_upper_limit_cm3"].values.ravel()
+    lo = ds["spectrum_lower_limit_cm3"].values.ravel()
+    up = ds["spectrum_upper_limit_cm3"].values.ravel()
     inside = np.mean((lo <= 2e-8) & (up >= 2e-8))
     n = lo.size
     assert abs(inside - 0.95) < 4 * np.sqrt(0.95 * 0.05 / n)
+    # per observation (its three lines of sight combined) the intervals cover just as well
+    olo = ds["observation_lower_limit_cm3"].values.ravel()
+    oup = ds["observation_upper_limit_cm3"].values.ravel()
+    inside = np.mean((olo <= 2e-8) & (oup >= 2e-8))
+    assert abs(inside - 0.95) < 4 * np.sqrt(0.95 * 0.05 / olo.size)
     # the joint limit combines all spectra: tighter than any single one
     assert ds["density_upper_limit_cm3"].item() < np.nanmin(up)
     ds.close()
@@ -326,3 +331,45 @@ def test_limit_with_radius_sweep_and_minimal_real_file(tmp_path):
     assert np.all(ds["density_lower_limit_cm3"].values == 0)
     assert png.stat().st_size > 1000
     ds.close()
+
+
+def test_limit_warns_when_model_does_not_fit(tmp_path):
+    # data with dust of a different colour than the hypothesis: chi-square p-values collapse
+    truth = SCEN.replace("N0", "3e-5").replace("radius_um = 0.08", "radius_um = 0.6")
+    (tmp_path / "t.toml").write_text(textwrap.dedent(truth))
+    from dustrt import DustrtWarning, io
+    from dustrt.limits import limits_file
+
+    io.write_netcdf(observation_dataset(load_scenario(tmp_path / "t.toml"), realizations=3, seed=2),
+                    tmp_path / "o.nc")
+    _, hyp = scenario(tmp_path, n0="1e-7", name="hyp.toml")
+    with pytest.warns(DustrtWarning, match="does not describe the data"):
+        limits_file(tmp_path / "o.nc", load_scenario(hyp))
+
+
+def test_sweep_ignores_views_ending_on_the_surface(tmp_path):
+    # a view that ends on the surface carries no zodiacal light and is left out (as in the
+    # separation), so adding one does not change the minimum detectable density
+    from dustrt.sweep import detectability
+
+    base, _ = scenario(tmp_path, name="a.toml")
+    text = SCEN.replace("N0", "1e-7").replace("[3.0, 10.0, 20.0]", "[-5.0, 3.0, 10.0, 20.0]")
+    (tmp_path / "b.toml").write_text(textwrap.dedent(text).replace("[background]", "[background]\ndark_surface_radiance_factor = 0.0"))
+    import warnings
+
+    from dustrt import DustrtWarning
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DustrtWarning)  # the sunlit-surface view is flagged
+        with_surface = detectability(load_scenario(tmp_path / "b.toml"), 5.0)
+    plain = detectability(base, 5.0)
+    np.testing.assert_allclose(with_surface["minimum_detectable_density_cm3"],
+                               plain["minimum_detectable_density_cm3"], rtol=1e-9)
+
+
+def test_lognormal_radius_sweep_moves_explicit_bounds():
+    from dustrt.sizes import LogNormal
+
+    s = LogNormal(0.1, 1.5, 0.05, 0.5).with_radius(1.0)
+    assert (s.median_radius_um, s.min_radius_um, s.max_radius_um) == pytest.approx((1.0, 0.5, 5.0))
+    assert LogNormal(0.1, 1.5).with_radius(0.2).min_radius_um is None
