@@ -373,3 +373,32 @@ def test_lognormal_radius_sweep_moves_explicit_bounds():
     s = LogNormal(0.1, 1.5, 0.05, 0.5).with_radius(1.0)
     assert (s.median_radius_um, s.min_radius_um, s.max_radius_um) == pytest.approx((1.0, 0.5, 5.0))
     assert LogNormal(0.1, 1.5).with_radius(0.2).min_radius_um is None
+
+
+def test_sweep_interrupted_and_resumed_recomputes_nothing_finished(tmp_path, monkeypatch):
+    import dustrt.sweep as sweep_mod
+    from dustrt.chunks import ChunkError, completed_chunks
+
+    _, path = scenario(tmp_path, extra=SWEEP.replace("detection_sigma = 5.0", "detection_sigma = 5.0\nchunk_size = 1"))
+    reference = sweep_mod.run_sweep(load_scenario(path), tmp_path / "ref.nc")
+    real = sweep_mod.detectability
+    calls = []
+
+    def failing(sc, sigma):
+        if len(calls) == 3:
+            raise RuntimeError("simulated interruption")
+        calls.append(1)
+        return real(sc, sigma)
+
+    monkeypatch.setattr(sweep_mod, "detectability", failing)
+    out = tmp_path / "sw.nc"
+    with pytest.raises(ChunkError):
+        sweep_mod.run_sweep(load_scenario(path), out)
+    finished = completed_chunks(tmp_path / "sw.nc.chunks")
+    assert len(finished) == 3 and not out.exists()
+    calls.clear()
+    monkeypatch.setattr(sweep_mod, "detectability", lambda sc, s: (calls.append(1), real(sc, s))[1])
+    ds = sweep_mod.run_sweep(load_scenario(path), out, resume=True)
+    assert len(calls) == 6 - 3  # 3 radii x 2 exposure times, 3 finished before
+    xr.testing.assert_identical(ds["minimum_detectable_density_cm3"], reference["minimum_detectable_density_cm3"])
+    assert out.exists() and not (tmp_path / "sw.nc.chunks").exists()
