@@ -19,7 +19,7 @@ from typing import Any
 
 import numpy as np
 
-MOON_RADIUS_KM = 1737.4  # IAU mean radius
+from dustrt.constants import MOON_RADIUS_KM
 
 
 class ScenarioError(ValueError):

@@ -20,10 +20,7 @@ import numpy as np
 
 from dustrt import warn
 
-UM2_TO_CM2 = 1e-8
-#: IAU 2015 Resolution B3 nominal solar radius [km] and the astronomical unit [km].
-SOLAR_RADIUS_KM = 695700.0
-AU_KM = 149597870.7
+from dustrt.constants import AU_KM, SOLAR_RADIUS_KM, UM2_TO_CM2
 
 
 def solar_angular_radius_deg(distance_au: float) -> float:
