@@ -19,13 +19,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from dustrt import warn
-
 from dustrt.constants import AU_KM, SOLAR_RADIUS_KM, UM2_TO_CM2
 
-
-def solar_angular_radius_deg(distance_au: float) -> float:
-    """Apparent angular radius of the Sun seen from ``distance_au`` [deg]."""
-    return float(np.rad2deg(np.arcsin(SOLAR_RADIUS_KM / (distance_au * AU_KM))))
 #: Optical depth above which the first-order extinction expansion is poor.
 FIRST_ORDER_TAU_LIMIT = 0.1
 
@@ -246,6 +241,11 @@ def compute_limb(scenario, geometry: LimbGeometry | None = None, progress=False,
 
 
 RADIANCE_UNITS = "W m-2 sr-1 nm-1"
+
+
+def solar_angular_radius_deg(distance_au: float) -> float:
+    """Apparent angular radius of the Sun seen from ``distance_au`` [deg]."""
+    return float(np.rad2deg(np.arcsin(SOLAR_RADIUS_KM / (distance_au * AU_KM))))
 
 
 def _solar_transmission(r: LimbResult, distance_au: float) -> np.ndarray:
