@@ -212,3 +212,18 @@ def test_reference_density_of_profiles():
     assert reference_density_cm3(ExponentialProfile(3e-4, 10.0)) == 3e-4
     t = TableProfile(np.array([0.0, 10.0]), np.array([-50.0, 50.0]), np.array([[1e-4, 4e-4], [1e-5, 2e-5]]), scale=2.0)
     assert reference_density_cm3(t) == pytest.approx(8e-4)
+
+
+def test_views_ending_on_the_night_surface(tmp_path):
+    # The body blocks the zodiacal light behind a view that ends on the surface; a night-side
+    # surface adds only the optional uniform term factor·F/π (a Lambertian surface lit by F·factor).
+    text = textwrap.dedent(SCEN.replace("EXT", "false").replace("N0", "1e-2")).replace(
+        "[background]\nzodiacal_light = false", "[background]\nzodiacal_light = true\ndark_surface_radiance_factor = 1e-3")
+    text = text.replace("local_time_h = 6.3", "local_time_h = 3.0").replace("[0.0, 5.0, 15.0, 30.0]", "[-20.0, 10.0]")
+    (tmp_path / "n.toml").write_text(text)
+    ds = limb_dataset(load_scenario(tmp_path / "n.toml"))
+    assert ds["hits_surface"].values.tolist() == [1, 0]
+    np.testing.assert_array_equal(ds["zodiacal_radiance"].values[0], 0.0)
+    np.testing.assert_allclose(ds["surface_radiance"].values[0], 1e-3 * ds["solar_irradiance"].values / np.pi, rtol=1e-12)
+    assert np.all(ds["zodiacal_radiance"].values[1] > 0)
+    np.testing.assert_array_equal(ds["surface_radiance"].values[1], 0.0)
