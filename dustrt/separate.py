@@ -9,7 +9,8 @@ where Z is the zodiacal-light model for that look direction (slightly redder
 than sunlight), the optional second term lets its colour slope float, and D_p
 is the dust radiance the hypothesised population p produces at its scenario
 density (bluer than sunlight for fine grains).  a_D is thus the density in
-units of the hypothesised ``surface_density_cm3``.  The model is computed
+units of the hypothesised ``surface_density_cm3``.  Views that end on the
+surface are not limb views and are left out (NaN results).  The model is computed
 without extinction, so it is exactly linear in density; it is integrated onto
 the data's bins with the instrument line-spread function.
 
@@ -146,6 +147,7 @@ class Templates:
     dust_per_unit: np.ndarray  # (P, R, B): dust radiance at the hypothesised density
     solar_irradiance: np.ndarray  # (B,)
     ray_index: np.ndarray  # (O, L) -> R
+    hits_surface: np.ndarray  # (R,) views ending on the surface: left out of the fits
 
 
 def unique_rays(observer_km, look_direction):
@@ -165,7 +167,8 @@ def build_templates(scenario, spectra: ObservedSpectra, bin_width_nm=None, fwhm_
                             nominal_tangent_altitude_km=np.full(looks.shape[0], np.nan))
     b = binned_limb(scenario, geometry, spectra.wavelength_nm, width, fwhm, progress=progress, extinction=False)
     return Templates(zodiacal=b.zodiacal_radiance, dust_per_unit=b.population_radiance,
-                     solar_irradiance=b.solar_irradiance, ray_index=index)
+                     solar_irradiance=b.solar_irradiance, ray_index=index,
+                     hits_surface=np.asarray(b.limb.columns.hits_surface, dtype=bool))
 
 
 def _lsf(scenario, spectra, width, fwhm):
@@ -257,7 +260,10 @@ def fit_spectra(data, sigma, templates, use_mask) -> tuple:
 def separate(scenario, spectra: ObservedSpectra, templates: Templates | None = None, progress=False):
     """Fit every spectrum with each population's hypothesis; returns a list of SeparationFit (one per population)."""
     templates = templates or build_templates(scenario, spectra, progress=progress)
-    use = spectra.usable & fit_mask(scenario, spectra.wavelength_nm)
+    # views that end on the surface see no zodiacal light and a surface that is not a fit
+    # component: they are not limb views and are left out (their results are NaN)
+    limb_view = ~templates.hits_surface[templates.ray_index]
+    use = spectra.usable & fit_mask(scenario, spectra.wavelength_nm) & limb_view[..., None]
     zod = templates.zodiacal[templates.ray_index]  # (O, L, B)
     fits = []
     names = ("zodiacal_amplitude",) + (("zodiacal_colour_slope",) if scenario.separation.free_colour_slope
@@ -302,7 +308,8 @@ def separate_file(observation_path, scenario, progress=False):
     templates = build_templates(scenario, spectra, progress=progress)
     fits = separate(scenario, spectra, templates)
     sep = scenario.separation
-    use = spectra.usable & fit_mask(scenario, spectra.wavelength_nm)
+    limb_view = ~templates.hits_surface[templates.ray_index]
+    use = spectra.usable & fit_mask(scenario, spectra.wavelength_nm) & limb_view[..., None]
     colour_use = spectra.usable & window_mask(scenario, spectra.wavelength_nm)
     wl = spectra.wavelength_nm
     f = templates.solar_irradiance
@@ -355,6 +362,7 @@ def separate_file(observation_path, scenario, progress=False):
                "observation_file": str(observation_path), "scenario": scenario.text,
                "blue_band_nm": list(blue), "red_band_nm": list(red),
                "masked_windows_nm": str(list(sep.mask_nm)), "free_colour_slope": int(sep.free_colour_slope),
-               "ignored_nan_bins": spectra.n_nan, "ignored_masked_bins": spectra.n_file_masked},
+               "ignored_nan_bins": spectra.n_nan, "ignored_masked_bins": spectra.n_file_masked,
+               "surface_views_left_out": int(np.sum(~limb_view))},
     )
     return ds
