@@ -32,15 +32,29 @@ def _say(args, message: str) -> None:
 
 
 def _finish(args, ds, figure: str | None = None) -> int:
-    """Write the Dataset (atomically) and, if asked, the named quick-look figure."""
+    """Write the Dataset and, if asked, the named quick-look figure; all or nothing.
+
+    The figure is drawn and rendered to a temporary file first, so a plotting
+    problem leaves no netCDF behind; both files are renamed into place at the end.
+    """
+    from pathlib import Path
+
     from dustrt import io
 
-    io.write_netcdf(ds, args.output)
-    _say(args, f"wrote {args.output}")
+    tmp_plot = None
     if figure and getattr(args, "plot", None):
         from dustrt import plots
 
-        io.save_figure(getattr(plots, figure)(ds), args.plot)
+        tmp_plot = io.render_figure(getattr(plots, figure)(ds), args.plot)
+    try:
+        io.write_netcdf(ds, args.output)
+    except BaseException:
+        if tmp_plot:
+            Path(tmp_plot).unlink(missing_ok=True)
+        raise
+    _say(args, f"wrote {args.output}")
+    if tmp_plot:
+        io.commit(tmp_plot, args.plot)
         _say(args, f"wrote {args.plot}")
     return 0
 
@@ -90,6 +104,9 @@ def _cmd_sweep(args) -> int:
     from dustrt.sweep import run_sweep
 
     sc = _load(args.scenario)
+    io.check_output_path(args.output)
+    if args.plot:
+        io.check_output_path(args.plot, "plot")
     ds = run_sweep(sc, args.output, scheduler=args.scheduler, workers=args.workers,
                    resume=args.resume, progress=not args.quiet)
     _say(args, f"wrote {args.output}")
@@ -99,6 +116,25 @@ def _cmd_sweep(args) -> int:
         io.save_figure(plots.sweep_figure(ds), args.plot)
         _say(args, f"wrote {args.plot}")
     return 0
+
+
+def _count(text: str) -> int:
+    """argparse type: an integer >= 0."""
+    try:
+        v = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"must be an integer >= 0, got {text!r}") from None
+    if v < 0:
+        raise argparse.ArgumentTypeError(f"must be an integer >= 0, got {v}")
+    return v
+
+
+def _positive(text: str) -> int:
+    """argparse type: an integer >= 1."""
+    v = _count(text)
+    if v < 1:
+        raise argparse.ArgumentTypeError(f"must be an integer >= 1, got {v}")
+    return v
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -142,9 +178,10 @@ def build_parser() -> argparse.ArgumentParser:
                                    "with --realizations, noisy calibrated spectra.")
     p.add_argument("scenario", nargs="?", default=DEMO, metavar="SCENARIO", help="scenario TOML (default: demo)")
     p.add_argument("-o", "--output", required=True, metavar="OBS.nc", help="netCDF file to write")
-    p.add_argument("--realizations", type=int, default=0, metavar="N",
+    p.add_argument("--realizations", type=_count, default=0, metavar="N",
                    help="number of noisy realisations (0: expected values only)")
-    p.add_argument("--seed", type=int, default=None, metavar="S", help="random seed (reproducible noise)")
+    p.add_argument("--seed", type=_count, default=None, metavar="S",
+                   help="random seed, an integer >= 0 (reproducible noise)")
     common(p)
     p.set_defaults(func=_cmd_observe)
 
@@ -178,18 +215,42 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--plot", metavar="FILE.png", help="also draw the minimum detectable density")
     g = p.add_mutually_exclusive_group()
     g.add_argument("--scheduler", metavar="ADDRESS", help="address of an existing dask.distributed scheduler")
-    g.add_argument("--workers", type=int, metavar="N", help="local cluster size (default: serial in-process)")
+    g.add_argument("--workers", type=_positive, metavar="N", help="local cluster size (default: serial in-process)")
     p.add_argument("--resume", action="store_true", help="reuse finished chunks of an interrupted sweep")
     common(p)
     p.set_defaults(func=_cmd_sweep)
     return parser
 
 
+def _refuse_overwriting_inputs(args) -> None:
+    out = Path(args.output).resolve()
+    for name in ("scenario", "observation"):
+        value = getattr(args, name, None)
+        if value not in (None, DEMO) and Path(value).resolve() == out:
+            raise ValueError(f"output {args.output}: is the input {name} file; choose another name")
+    if getattr(args, "plot", None) and Path(args.plot).resolve() == out:
+        raise ValueError(f"--plot {args.plot}: is the same file as the output")
+
+
 def main(argv=None) -> int:
+    from dustrt.chunks import ChunkError  # light: imports no dask
+
     parser = build_parser()
     args = parser.parse_args(argv)
     try:
+        _refuse_overwriting_inputs(args)
         return args.func(args)
+    except ChunkError as exc:
+        # a grid point failed: bad input if its cause is a validation error
+        cause = exc.__cause__
+        if isinstance(cause, ValueError):
+            print(f"dustrt {args.command}: error: {cause} (finished chunks are kept; rerun with --resume)",
+                  file=sys.stderr)
+            return 2
+        raise
+    except UnicodeDecodeError as exc:
+        print(f"dustrt {args.command}: error: input is not UTF-8 text ({exc.reason})", file=sys.stderr)
+        return 2
     except (ValueError, OSError) as exc:
         # bad input: scenario/data validation errors are ValueErrors with file and key
         print(f"dustrt {args.command}: error: {exc}", file=sys.stderr)

@@ -286,7 +286,10 @@ def load_scenario(path: str | Path) -> Scenario:
     path = Path(path)
     if not path.is_file():
         raise ScenarioError(f"{path}: scenario file not found")
-    text = path.read_text()
+    try:
+        text = path.read_text(encoding="utf-8")
+    except UnicodeDecodeError:
+        raise ScenarioError(f"{path}: scenario file is not UTF-8 text") from None
     try:
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -404,7 +407,43 @@ def scenario_from_dict(raw: dict, source: str = "<scenario>", base_dir: Path | N
     if scenario.observer is not None and scenario.observer.altitude_km <= 0:
         raise top.error("observer.altitude_km", "must be above the surface (> 0)")
     _check_view_against_observer(scenario, top)
+    _check_spectral_coverage(scenario, top)
     return scenario
+
+
+def _check_spectral_coverage(s: Scenario, top: _Table) -> None:
+    """Materials, the solar spectrum and the instrument bins against the model wavelengths."""
+    wl = s.wavelength_nm
+    for i, p in enumerate(s.populations):
+        lo, hi = p.material.wavelength_range_nm
+        if wl[0] < lo or wl[-1] > hi:
+            raise top.error(f"population[{i}].material",
+                            f"{p.material.name!r} ({p.material.source or 'table'}) covers {lo:g}-{hi:g} nm; "
+                            f"the [wavelengths] grid {wl[0]:g}-{wl[-1]:g} nm reaches outside it")
+    needs_sun = s.observer is not None or s.instrument is not None
+    if needs_sun:
+        from dustrt.sun import solar_table
+
+        try:
+            tw, _ = solar_table(s.solar_spectrum)
+        except ValueError as exc:
+            raise top.error("sun.spectrum", str(exc)) from None
+        if wl[0] < tw[0] or wl[-1] > tw[-1]:
+            raise top.error("sun.spectrum", f"the solar spectrum covers {tw[0]:g}-{tw[-1]:g} nm; the "
+                                            f"[wavelengths] grid {wl[0]:g}-{wl[-1]:g} nm reaches outside it")
+    if s.instrument is not None:
+        inst = s.instrument.instrument
+        if wl.size < 2:
+            raise top.error("wavelengths", "needs at least two wavelengths when an [instrument] is given")
+        # the line-spread function reaches ~1.4 FWHM beyond each bin edge (99.9 % of a Gaussian)
+        reach = 0.5 * inst.bin_width_nm + 1.5 * inst.resolution_fwhm_nm
+        need_lo = inst.bin_centres_nm[0] - reach
+        need_hi = inst.bin_centres_nm[-1] + reach
+        if need_lo < wl[0] or need_hi > wl[-1]:
+            raise top.error("instrument.wavelength_min_nm",
+                            f"the instrument bins and line-spread function need model wavelengths "
+                            f"{need_lo:g}-{need_hi:g} nm; [wavelengths] covers {wl[0]:g}-{wl[-1]:g} nm "
+                            "(widen [wavelengths] or narrow the instrument range)")
 
 
 def _population(t: _Table) -> Population:

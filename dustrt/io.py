@@ -24,15 +24,38 @@ def _encoding(ds: xr.Dataset) -> dict:
     return enc
 
 
+def check_output_path(path: str | Path, what: str = "output") -> Path:
+    """Fail early, naming the path, if an output file cannot be created there."""
+    path = Path(path)
+    if path.is_dir():
+        raise ValueError(f"{what} {path}: is a directory")
+    parent = path.parent if str(path.parent) else Path(".")
+    if not parent.is_dir():
+        raise ValueError(f"{what} {path}: directory {parent} does not exist")
+    if not os.access(parent, os.W_OK):
+        raise ValueError(f"{what} {path}: directory {parent} is not writable")
+    return path
+
+
+def _temporary_beside(path: Path, suffix: str) -> str:
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=suffix, dir=path.parent)
+    os.close(fd)
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600; a product file follows the umask
+    return tmp
+
+
 def write_netcdf(ds: xr.Dataset, path: str | Path) -> Path:
     """Write ``ds`` atomically to ``path`` (temporary file + rename)."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    os.close(fd)
+    path = check_output_path(path)
+    tmp = _temporary_beside(path, ".tmp")
     try:
         ds.to_netcdf(tmp, engine=ENGINE, encoding=_encoding(ds))
         os.replace(tmp, path)
+    except OSError as exc:
+        Path(tmp).unlink(missing_ok=True)
+        raise ValueError(f"output {path}: cannot be written ({exc.strerror or exc})") from None
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise
@@ -51,19 +74,35 @@ def read_netcdf(path: str | Path) -> xr.Dataset:
         raise ValueError(f"{path}: cannot be read as netCDF ({exc})") from None
 
 
-def save_figure(fig, path: str | Path) -> Path:
-    """Save a matplotlib figure atomically."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=path.suffix or ".png", dir=path.parent)
-    os.close(fd)
+def render_figure(fig, path: str | Path) -> str:
+    """Render a figure to a temporary file beside ``path``; :func:`commit` or discard it later."""
+    import matplotlib.pyplot as plt
+
+    path = check_output_path(path, "plot")
+    fmt = path.suffix.lstrip(".").lower()
+    if fmt not in fig.canvas.get_supported_filetypes():
+        plt.close(fig)
+        raise ValueError(f"plot {path}: unsupported format {fmt!r}; use one of "
+                         + ", ".join(sorted(fig.canvas.get_supported_filetypes())))
+    tmp = _temporary_beside(path, "." + fmt)
     try:
-        fig.savefig(tmp, dpi=120, bbox_inches="tight")
-        os.replace(tmp, path)
+        fig.savefig(tmp, dpi=120, bbox_inches="tight", format=fmt)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise
-    return path
+    finally:
+        plt.close(fig)
+    return tmp
+
+
+def commit(tmp: str, path: str | Path) -> Path:
+    os.replace(tmp, path)
+    return Path(path)
+
+
+def save_figure(fig, path: str | Path) -> Path:
+    """Save a matplotlib figure atomically."""
+    return commit(render_figure(fig, path), path)
 
 
 def read_csv_table(path: str | Path, columns: tuple[str, ...]) -> dict[str, np.ndarray]:

@@ -131,16 +131,15 @@ def limits_file(observation_path, scenario, method=None, progress=False):
     import xarray as xr
 
     import dustrt
-    from dustrt.separate import build_templates, read_observation, separate
+    from dustrt.separate import build_templates, check_bands, check_hypotheses, read_observation, separate
 
     method = method or scenario.limits.method
     conf = scenario.limits.confidence
     if method not in METHOD_LABELS:
         raise ValueError(f"unknown limit method {method!r}; known: {', '.join(METHOD_LABELS)}")
-    for i, p in enumerate(scenario.populations):
-        if p.density is None:
-            raise ValueError(f"{scenario.source}: key 'population[{i}].density': is required for limits")
+    check_hypotheses(scenario, "dustrt limit")
     spectra = read_observation(observation_path, scenario)
+    check_bands(scenario, spectra.wavelength_nm, spectra.source)
     radii = None
     if scenario.sweep is not None:
         for key, values in scenario.sweep.axes:

@@ -116,6 +116,11 @@ def observation_dataset(scenario, realizations: int = 0, seed: int | None = None
         radiance = electrons_to_radiance(noisy_e, centres, inst)
     else:
         radiance = expected[None]
+    # bins with zero throughput deliver no data: NaN radiance (infinite uncertainty)
+    dead = ~np.isfinite(counts.radiance_uncertainty)
+    if dead.all():
+        raise ValueError(f"{scenario.source}: key 'instrument.throughput': zero at every bin; no signal")
+    radiance = np.where(dead, np.nan, radiance)
     n_obs = radiance.shape[0]
     unc = np.broadcast_to(counts.radiance_uncertainty, radiance.shape)
     g = b.limb.geometry

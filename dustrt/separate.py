@@ -83,14 +83,22 @@ def read_observation(path, scenario=None) -> ObservedSpectra:
         except (ValueError, TypeError) as exc:
             raise ValueError(f"{path}: variable {name!r} does not match 'radiance' ({exc})") from None
 
-    unc = aligned("radiance_uncertainty").astype(float)
-    rad = rad.values.astype(float)
-    wl = ds["wavelength_nm"].values.astype(float)
-    if wl.size < 2 or not np.all(np.isfinite(wl)) or np.any(np.diff(wl) <= 0):
-        raise ValueError(f"{path}: coordinate 'wavelength_nm' must be finite and strictly increasing")
+    def numeric(name, values):
+        try:
+            return np.asarray(values, dtype=float)
+        except (TypeError, ValueError):
+            raise ValueError(f"{path}: variable {name!r} must be numeric") from None
+
+    unc = numeric("radiance_uncertainty", aligned("radiance_uncertainty"))
     masked = np.zeros(rad.shape, dtype=bool)
     if "radiance_mask" in ds.variables:
-        masked = aligned("radiance_mask") != 0
+        masked = numeric("radiance_mask", aligned("radiance_mask")) != 0
+    rad = numeric("radiance", rad.values)
+    if rad.shape[0] == 0 or rad.shape[1] == 0:
+        raise ValueError(f"{path}: variable 'radiance' holds no spectra")
+    wl = numeric("wavelength_nm", ds["wavelength_nm"].values)
+    if wl.size < 2 or not np.all(np.isfinite(wl)) or np.any(np.diff(wl) <= 0):
+        raise ValueError(f"{path}: coordinate 'wavelength_nm' must be finite and strictly increasing")
     nan = ~np.isfinite(rad)
     usable = ~nan & ~masked
     bad = usable & ~(np.isfinite(unc) & (unc > 0))
@@ -105,15 +113,18 @@ def read_observation(path, scenario=None) -> ObservedSpectra:
         dims = [d for d in ("observation", "line_of_sight") if d in v.dims] + ["vector"]
         if set(v.dims) != set(dims) or "line_of_sight" not in dims:
             raise ValueError(f"{path}: variable {name!r} must have dimensions ([observation,] line_of_sight, vector)")
-        arr = v.transpose(*dims).values.astype(float)
+        arr = numeric(name, v.transpose(*dims).values)
         if arr.ndim == 2:
             arr = arr[None]
         return np.broadcast_to(arr, rad.shape[:2] + (3,))
 
+    if not usable.any():
+        raise ValueError(f"{path}: variable 'radiance' has no finite, unmasked bin")
     looks = geo("look_direction")
     obs = geo("observer_position_km")
     if not (np.all(np.isfinite(looks)) and np.all(np.isfinite(obs))):
         raise ValueError(f"{path}: geometry variables must be finite")
+
     def attr(name):
         if name not in ds.attrs:
             return None
@@ -257,8 +268,34 @@ def fit_spectra(data, sigma, templates, use_mask) -> tuple:
     return a, cov, a_nn, res
 
 
+def check_hypotheses(scenario, command: str = "this analysis") -> None:
+    """Every population needs a density profile with a positive normalisation (it sets the template)."""
+    for i, p in enumerate(scenario.populations):
+        if p.density is None:
+            raise ValueError(f"{scenario.source}: key 'population[{i}].density': is required for {command}")
+        if not reference_density_cm3(p.density) > 0:
+            raise ValueError(f"{scenario.source}: key 'population[{i}].density': the density normalisation must be "
+                             f"> 0 for {command} (it sets the hypothesised template; results scale with it)")
+
+
+def check_bands(scenario, wavelength_nm, source: str) -> None:
+    """The colour bands and the fit bands must contain bins of the data."""
+    sep = scenario.separation
+    wl = np.asarray(wavelength_nm)
+    for key, band in (("blue_band_nm", sep.blue_band_nm), ("red_band_nm", sep.red_band_nm)):
+        if not np.any((wl >= band[0]) & (wl <= band[1]) & window_mask(scenario, wl)):
+            raise ValueError(f"{scenario.source}: key 'separation.{key}': {list(band)} holds no unmasked bin of "
+                             f"{source} (bins {wl[0]:g}-{wl[-1]:g} nm)")
+    k = 3 if sep.free_colour_slope else 2
+    if np.sum(fit_mask(scenario, wl)) <= k:
+        raise ValueError(f"{scenario.source}: key 'separation.fit_bands_nm': fit bands and masks leave "
+                         f"{int(np.sum(fit_mask(scenario, wl)))} bin(s) of {source}; the fit needs more than {k}")
+
+
 def separate(scenario, spectra: ObservedSpectra, templates: Templates | None = None, progress=False):
     """Fit every spectrum with each population's hypothesis; returns a list of SeparationFit (one per population)."""
+    check_hypotheses(scenario)
+    check_bands(scenario, spectra.wavelength_nm, spectra.source)
     templates = templates or build_templates(scenario, spectra, progress=progress)
     # views that end on the surface see no zodiacal light and a surface that is not a fit
     # component: they are not limb views and are left out (their results are NaN)
@@ -304,7 +341,9 @@ def separate_file(observation_path, scenario, progress=False):
 
     import dustrt
 
+    check_hypotheses(scenario, "dustrt separate")
     spectra = read_observation(observation_path, scenario)
+    check_bands(scenario, spectra.wavelength_nm, spectra.source)
     templates = build_templates(scenario, spectra, progress=progress)
     fits = separate(scenario, spectra, templates)
     sep = scenario.separation

@@ -29,8 +29,9 @@ def _read(path: str) -> tuple[np.ndarray, np.ndarray]:
     wl, f = t["wavelength_nm"], t["irradiance_w_m2_nm"]
     if wl.size < 2 or np.any(np.diff(wl) <= 0):
         raise ValueError(f"{path}: column 'wavelength_nm' must be strictly increasing with >= 2 rows")
-    if np.any(f < 0):
-        raise ValueError(f"{path}: column 'irradiance_w_m2_nm' must be >= 0")
+    if np.any(f <= 0):
+        raise ValueError(f"{path}: column 'irradiance_w_m2_nm' must be > 0 (sunlight has no zero bins "
+                         "in the UV-visible)")
     wl.setflags(write=False)
     f.setflags(write=False)
     return wl, f

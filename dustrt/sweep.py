@@ -139,16 +139,22 @@ def run_sweep(scenario, output_path, scheduler=None, workers=None, resume=False,
     from dustrt.chunks import remove_checkpoints, run_chunked
 
     spec = sweep_spec(scenario)
-    # validate every grid point's scenario up front, so a bad swept value fails fast with its key
+    # validate every grid point's scenario up front (parsing only, ~1 ms each), so a bad
+    # swept value or combination fails fast, naming the keys, before any work is done
+    from dustrt.separate import check_bands, check_hypotheses
+
     shape = tuple(len(v) for _, v in spec["axes"])
     n_points = int(np.prod(shape))
-    for key, values in spec["axes"]:
-        for v in (values[0], values[-1]):
-            try:
-                _scenario_at(spec, {key: float(v)})
-            except ValueError as exc:
-                raise ValueError(f"{scenario.source}: key 'sweep.{key}': value {v:g} gives an invalid "
-                                 f"scenario: {exc}") from None
+    for i in range(n_points):
+        values = grid_values(spec["axes"], i)
+        try:
+            sc = _scenario_at(spec, values)
+            check_hypotheses(sc, "dustrt sweep")
+            check_bands(sc, sc.instrument.instrument.bin_centres_nm, "the instrument")
+        except ValueError as exc:
+            point = ", ".join(f"{k} = {v:g}" for k, v in values.items())
+            raise ValueError(f"{scenario.source}: key 'sweep': the grid point ({point}) gives an invalid "
+                             f"scenario: {exc}") from None
     output_path = Path(output_path)
     ckdir = output_path.with_name(output_path.name + ".chunks")
     res = run_chunked(compute_chunk, spec, n_points, ckdir,

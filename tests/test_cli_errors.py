@@ -1,0 +1,164 @@
+"""Bad input across the commands: exit code 2, a message naming file and key, no output left."""
+
+import textwrap
+
+import numpy as np
+import pytest
+import xarray as xr
+
+from dustrt.cli import main
+
+SCEN = """
+[wavelengths]
+start_nm = 280.0
+stop_nm = 760.0
+step_nm = 4.0
+
+[observer]
+altitude_km = 40.0
+local_time_h = 5.6
+
+[view]
+tangent_altitudes_km = [3.0, 10.0]
+
+[integration]
+extinction = false
+
+[[population]]
+name = "fine"
+material = "mare_basaltic_analogue"
+size = { distribution = "monodisperse", radius_um = 0.08 }
+density = { profile = "exponential", surface_density_cm3 = 1e-7, scale_height_km = 10.0 }
+
+[instrument]
+aperture_area_cm2 = 20.0
+field_of_view_deg = 0.2
+integration_time_s = 10.0
+bin_width_nm = 8.0
+resolution_fwhm_nm = 8.0
+wavelength_min_nm = 300.0
+wavelength_max_nm = 740.0
+throughput = 0.1
+read_noise_e = 10.0
+"""
+
+
+@pytest.fixture
+def obs(tmp_path):
+    p = tmp_path / "s.toml"
+    p.write_text(textwrap.dedent(SCEN))
+    out = tmp_path / "obs.nc"
+    assert main(["observe", str(p), "-o", str(out), "--realizations", "2", "--seed", "1", "-q"]) == 0
+    return p, out
+
+
+def run_bad(tmp_path, capsys, args, *needles, output="out.nc"):
+    out = tmp_path / output
+    rc = main(args + ["-o", str(out)])
+    err = capsys.readouterr().err
+    assert rc == 2, err
+    assert "Traceback" not in err
+    for n in needles:
+        assert n in err, err
+    assert not out.exists()
+    assert not [p for p in tmp_path.rglob("*.tmp")]
+    return err
+
+
+def scenario_with(tmp_path, old, new, name="bad.toml"):
+    text = textwrap.dedent(SCEN)
+    assert old in text
+    p = tmp_path / name
+    p.write_text(text.replace(old, new))
+    return p
+
+
+def test_radiance_mask_is_honoured(tmp_path, obs):
+    scen, path = obs
+    ds = xr.open_dataset(path, engine="h5netcdf").load()
+    ds["radiance_mask"] = xr.zeros_like(ds["radiance"], dtype=np.int8)
+    ds["radiance_mask"][:, :, 10] = 1
+    ds.to_netcdf(tmp_path / "m.nc", engine="h5netcdf")
+    assert main(["limit", str(tmp_path / "m.nc"), "--scenario", str(scen), "-o", str(tmp_path / "l.nc"), "-q"]) == 0
+    assert xr.open_dataset(tmp_path / "l.nc", engine="h5netcdf").attrs["ignored_masked_bins"] == 2 * 2
+
+
+def test_failing_plot_leaves_no_output(tmp_path, capsys):
+    p = tmp_path / "s.toml"
+    p.write_text(textwrap.dedent(SCEN))
+    run_bad(tmp_path, capsys, ["limb", str(p), "--plot", str(tmp_path / "fig.xyz")], "fig.xyz", "format")
+
+
+def test_output_must_not_overwrite_input(tmp_path, capsys, obs):
+    scen, path = obs
+    before = scen.read_bytes()
+    assert main(["limb", str(scen), "-o", str(scen)]) == 2
+    assert "input scenario" in capsys.readouterr().err
+    assert scen.read_bytes() == before
+    assert main(["limit", str(path), "--scenario", str(scen), "-o", str(path)]) == 2
+
+
+def test_output_directory_must_exist(tmp_path, capsys):
+    p = tmp_path / "s.toml"
+    p.write_text(textwrap.dedent(SCEN))
+    assert main(["limb", str(p), "-o", str(tmp_path / "missing" / "o.nc")]) == 2
+    assert "does not exist" in capsys.readouterr().err
+
+
+def test_negative_seed_is_a_usage_error(tmp_path, capsys):
+    with pytest.raises(SystemExit) as e:
+        main(["observe", "-o", str(tmp_path / "o.nc"), "--seed", "-1"])
+    assert e.value.code == 2
+    assert "--seed" in capsys.readouterr().err
+
+
+BAD_SCENARIOS = [
+    ("material does not cover the grid", "start_nm = 280.0", "start_nm = 150.0", "population[0].material"),
+    ("instrument bins beyond the model grid", "wavelength_min_nm = 300.0", "wavelength_min_nm = 270.0",
+     "instrument.wavelength_min_nm"),
+    ("one wavelength with an instrument", "start_nm = 280.0\nstop_nm = 760.0\nstep_nm = 4.0",
+     "values_nm = [500.0]", "wavelengths"),
+]
+
+
+@pytest.mark.parametrize("label,old,new,key", BAD_SCENARIOS, ids=[b[0] for b in BAD_SCENARIOS])
+def test_bad_scenarios_name_their_key(tmp_path, capsys, label, old, new, key):
+    p = scenario_with(tmp_path, old, new)
+    run_bad(tmp_path, capsys, ["observe", str(p)], key, str(p))
+
+
+def test_non_utf8_scenario(tmp_path, capsys):
+    p = tmp_path / "s.toml"
+    p.write_bytes(b"\xff\xfe[wavelengths]\n")
+    run_bad(tmp_path, capsys, ["limb", str(p)], "UTF-8", str(p))
+
+
+def test_colour_band_without_bins(tmp_path, capsys, obs):
+    scen, path = obs
+    p = scenario_with(tmp_path, "read_noise_e = 10.0", "read_noise_e = 10.0\n\n[separation]\nred_band_nm = [900.0, 1000.0]")
+    run_bad(tmp_path, capsys, ["separate", str(path), "--scenario", str(p)], "separation.red_band_nm")
+    p = scenario_with(tmp_path, "read_noise_e = 10.0", "read_noise_e = 10.0\n\n[separation]\nfit_bands_nm = [[400.0, 402.0]]",
+                      name="bad2.toml")
+    run_bad(tmp_path, capsys, ["limit", str(path), "--scenario", str(p)], "separation.fit_bands_nm")
+
+
+def test_zero_density_hypothesis(tmp_path, capsys, obs):
+    scen, path = obs
+    p = scenario_with(tmp_path, "surface_density_cm3 = 1e-7", "surface_density_cm3 = 0.0")
+    run_bad(tmp_path, capsys, ["limit", str(path), "--scenario", str(p)], "population[0].density", "> 0")
+
+
+def test_sweep_bad_value_inside_the_grid(tmp_path, capsys):
+    p = scenario_with(tmp_path, "read_noise_e = 10.0",
+                      'read_noise_e = 10.0\n\n[sweep]\n"instrument.frames" = [1.0, 2.5, 3.0]')
+    err = run_bad(tmp_path, capsys, ["sweep", str(p)], "instrument.frames", "2.5")
+    assert not (tmp_path / "out.nc.chunks").exists()
+    assert "sweep" in err
+
+
+def test_all_nan_observation(tmp_path, capsys, obs):
+    scen, path = obs
+    ds = xr.open_dataset(path, engine="h5netcdf").load()
+    ds["radiance"][:] = np.nan
+    ds.to_netcdf(tmp_path / "nan.nc", engine="h5netcdf")
+    run_bad(tmp_path, capsys, ["separate", str(tmp_path / "nan.nc"), "--scenario", str(scen)], "nan.nc", "radiance")
