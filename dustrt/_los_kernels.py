@@ -10,13 +10,34 @@ terminator-peak crossings), bisecting the panel with the largest error relative
 to its population's target until every population meets it. Panels live in
 work arrays (an explicit list instead of recursion).
 
+Extinction weights (first order in the optical depth):
+
+- Sunward columns N_q^sun(p), the column of q from p along +x to the model top: tables
+  cell by cell between the sunward ray's node crossings (bilinear there, 2-point Gauss on
+  sub-cells short against the distance from the body's centre); the other profiles by
+  adaptive Gauss-Kronrod 7-15 on their own, few, break points.
+- N^sun along a sunlit segment is sampled on pieces and interpolated (in log N where that
+  fits better: near-quadratic in s for layered densities): 5 samples a, (a+c)/2, c,
+  (c+b)/2, b per piece [a, b] split at c. The error of the quadratic through samples 0, 2, 4,
+  seen at samples 1 and 3 and weighted by each population's column over the piece, decides
+  which piece to bisect (at c, reusing every sample) until it is small against K_pq for every
+  pair. Pieces start at the tangent point and at the points whose sunward ray grazes a table
+  node sphere (N^sun is not smooth there, and along limb rays those points come evenly
+  spaced: equally spaced samples could alias them).
+- K_pq then follows from the 15-point Kronrod rule on each sunlit column panel cut at the
+  piece ends, with N_q^obs from the exact integral of the part's 15-node interpolant of n_q
+  (an integration matrix: no further density evaluations).
+
+About 50 sunward columns per ray instead of one per quadrature node; see
+validation/bench_columns.py for timings and tests/test_los.py for the accuracy checks.
+
 References
 ----------
 [1] Piessens, R., de Doncker-Kapenga, E., Ueberhuber, C. W., Kahaner, D. K. (1983),
     QUADPACK: A Subroutine Package for Automatic Integration, Springer; routine QK15
     (Gauss-Kronrod 7-15 nodes and weights).
-[2] Kronrod, A. S. (1965), Nodes and Weights of Quadrature Formulas, Consultants Bureau,
-    New York (the 3-7 pair).
+[2] Abramowitz, M., Stegun, I. A. (1964), Handbook of Mathematical Functions, NBS AMS 55,
+    Table 25.4 (Gauss-Legendre nodes; the 2-point rule is exact for cubics, Eq. 25.4.30).
 """
 
 from __future__ import annotations
@@ -32,6 +53,8 @@ _K_EXP = KIND_EXPONENTIAL
 _K_POW = KIND_POWER_LAW
 _K_TERM = KIND_TERMINATOR
 _K_TAB = KIND_TABLE
+#: Kind code of a population left out of an integration (its density reads as zero).
+_K_SKIP = -1
 
 # [1] QK15: Kronrod abscissae (positive half, descending) and weights; Gauss 7-point weights.
 _XK_HALF = (
@@ -68,20 +91,42 @@ def _full_rule():
 
 GK_X, GK_WK, GK_WG = _full_rule()
 
-# [2] Gauss 3 / Kronrod 7 pair for the sunward columns N^sun (cheaper per panel; those
-# columns only enter the small extinction correction). Exactness is checked in the tests.
-_X7 = (0.960491268708020283423507092629080, 0.774596669241483377035853079956480,
-       0.434243749346802558002071502844628, 0.0)
-_W7K = (0.104656226026467265193823857192073, 0.268488089868333440728569280666710,
-        0.401397414775962222905051818618432, 0.450916538658474142345110087045571)
-_W7G = (0.0, 0.555555555555555555555555555555556, 0.0, 0.888888888888888888888888888888889)
-GK7_X = np.array([-v for v in _X7[:-1]] + list(_X7[::-1]))
-GK7_WK = np.array(list(_W7K[:-1]) + list(_W7K[::-1]))
-GK7_WG = np.array(list(_W7G[:-1]) + list(_W7G[::-1]))
-#: Indices of the 7 Gauss nodes within the 15 Kronrod nodes.
-G7_INDEX = np.nonzero(GK_WG)[0].astype(np.int64)
-G7_X = GK_X[G7_INDEX].copy()
-G7_W = GK_WG[G7_INDEX].copy()
+#: [2] 2-point Gauss nodes on [-1, 1] (weights 1) for the table cells of sunward columns.
+G2_X = np.array([-1.0 / math.sqrt(3.0), 1.0 / math.sqrt(3.0)])
+
+
+def _integration_matrix(x):
+    """S[j, g] = int_{-1}^{x_j} l_g(t) dt for the Lagrange basis l_g on the nodes x."""
+    leg = np.polynomial.legendre
+    coef = np.linalg.solve(leg.legvander(x, x.size - 1), np.eye(x.size))  # column g: l_g
+    return np.stack([leg.legval(x, leg.legint(coef[:, g], lbnd=-1.0)) for g in range(x.size)], axis=1)
+
+
+#: Cumulative integrals at the 15 Kronrod nodes of the degree-14 interpolant through them
+#: (row j: up to node j; column g: weight of the value at node g).
+GK_S = _integration_matrix(GK_X)
+
+#: Samples per interpolation piece [a, b] split at c: a, (a + c)/2, c, (c + b)/2, b.
+_PIECE_NODES = 5
+#: Barycentric weights of 5 equally spaced nodes: (-1)^k C(4, k).
+_BARY5 = np.array([1.0, -4.0, 6.0, -4.0, 1.0])
+#: Most bisections of interpolation pieces per ray (each costs 4 sunward columns).
+_MAX_BISECTIONS = 256
+#: Error of a piece's interpolant relative to the estimate (the coarse quadratic through
+#: samples 0, 2, 4 seen at samples 1, 3): the interpolant uses all 5 samples, so halving
+#: the step leaves 1/8 of a smooth N^sun's error, and 1/4 across a kink in its slope (where
+#: a table node passes); the larger is taken. Checked against tight runs in the tests and
+#: validation/bench_columns.py.
+_PIECE_ERROR_FACTOR = 0.25
+#: Sunward columns are integrated this much tighter than the extinction target, so their
+#: quadrature error stays below what the piece error estimates resolve.
+_SUN_TOLERANCE_FRACTION = 0.1
+#: Table sub-cells in sunward columns are at most this fraction of r long when the sunward
+#: columns' tolerance is _SUB_CELL_TOLERANCE: the 2-point Gauss error then stays below ~2e-6
+#: (measured on node-dense, coarse and thin-layer tables against Gauss-Kronrod at 1e-12) and
+#: scales as the fraction^4, which sets the fraction for other tolerances.
+_SUB_CELL_FRACTION = 0.05
+_SUB_CELL_TOLERANCE = 1e-5
 
 # Helpers that allocate nothing are compiled without the numba runtime: with it, every
 # call to a non-inlined helper reference-counts each array argument, which made the
@@ -96,9 +141,37 @@ _TOL_FLOOR = 1e-14
 
 
 @_leaf
+def _bracket(axis, off, n, x, x0, x1):
+    """Index i with axis[off + i] <= x <= axis[off + i + 1], for x0 <= x <= x1 (the axis ends).
+
+    Tries the cell of an evenly spaced axis first (and its neighbours): most tables are
+    evenly spaced, and this skips the binary search's unpredictable branches
+    (measured ~20 % of a two-population density evaluation); otherwise bisects.
+    """
+    i = min(max(int((x - x0) / (x1 - x0) * (n - 1)), 0), n - 2)
+    if axis[off + i] <= x and x <= axis[off + i + 1]:
+        return i
+    if i > 0 and axis[off + i - 1] <= x and x <= axis[off + i]:
+        return i - 1
+    if i < n - 2 and axis[off + i + 1] <= x and x <= axis[off + i + 2]:
+        return i + 1
+    lo = 0
+    hi = n - 1
+    while hi - lo > 1:
+        mid = (lo + hi) >> 1
+        if axis[off + mid] <= x:
+            lo = mid
+        else:
+            hi = mid
+    return lo
+
+
+@_leaf
 def _density_hd(h, d, k, kinds, params, tidx, talt, tdist, tval):
-    """Density [cm^-3] of profile k at altitude h [km] and terminator distance d [km]."""
+    """Density [cm^-3] of profile k at altitude h [km] and terminator distance d [km] (0 for kind _K_SKIP)."""
     kind = kinds[k]
+    if kind == _K_SKIP:
+        return 0.0
     if kind == _K_EXP:
         return params[k, 0] * math.exp(-h / params[k, 1])
     if kind == _K_POW:
@@ -117,31 +190,16 @@ def _density_hd(h, d, k, kinds, params, tidx, talt, tdist, tval):
     do = tidx[k, 2]
     nd = tidx[k, 3]
     vo = tidx[k, 4]
-    if h < talt[ao] or h > talt[ao + na - 1]:
+    h0 = talt[ao]
+    h1 = talt[ao + na - 1]
+    if not (h >= h0 and h <= h1):
         return 0.0
-    # bracketing cell in altitude (binary search)
-    lo = 0
-    hi = na - 1
-    while hi - lo > 1:
-        mid = (lo + hi) >> 1
-        if talt[ao + mid] <= h:
-            lo = mid
-        else:
-            hi = mid
+    lo = _bracket(talt, ao, na, h, h0, h1)
     th = (h - talt[ao + lo]) / (talt[ao + lo + 1] - talt[ao + lo])
-    dc = d
-    if dc < tdist[do]:
-        dc = tdist[do]
-    elif dc > tdist[do + nd - 1]:
-        dc = tdist[do + nd - 1]
-    jlo = 0
-    jhi = nd - 1
-    while jhi - jlo > 1:
-        mid = (jlo + jhi) >> 1
-        if tdist[do + mid] <= dc:
-            jlo = mid
-        else:
-            jhi = mid
+    d0 = tdist[do]
+    d1 = tdist[do + nd - 1]
+    dc = min(max(d, d0), d1)
+    jlo = _bracket(tdist, do, nd, dc, d0, d1)
     td = (dc - tdist[do + jlo]) / (tdist[do + jlo + 1] - tdist[do + jlo])
     base = vo + lo * nd + jlo
     v = ((1.0 - th) * (1.0 - td) * tval[base] + th * (1.0 - td) * tval[base + nd]
@@ -392,39 +450,508 @@ def _sort_prefix(bp, nbp):
 
 
 @_leaf
-def _sun_columns(px, py, pz, radius, r_top, kinds, params, tidx, talt, tdist, tval, tol,
-                 bp, pa, pb, pval, perr, plit, out, outlit, dens, acc, o, v):
-    """Column [km cm^-3] of every population from (px, py, pz) toward the Sun (+x) to the model top."""
+def _argsort(keys, n, idx):
+    """Fill idx[:n] with the order of keys[:n] (Shell sort with Ciura's gaps; no allocation).
+
+    Replaces np.argsort, whose quicksort costs ~1 s of compile time per call site.
+    """
+    for i in range(n):
+        idx[i] = i
+    for gap in (701, 301, 132, 57, 23, 10, 4, 1):
+        for i in range(gap, n):
+            t = idx[i]
+            j = i
+            while j >= gap and keys[idx[j - gap]] > keys[t]:
+                idx[j] = idx[j - gap]
+                j -= gap
+            idx[j] = t
+
+
+@_leaf
+def _table_sun_column(k, px, py, pz, radius, t_end, params, tidx, talt, tdist, tval, sub, bp, o, v):
+    """Column [km cm^-3] of table population k from (px, py, pz) along +x over [0, t_end].
+
+    Between the ray's crossings of the table's node spheres and cones the density is one
+    bilinear polynomial in (h, d), and h(u), d(u) along the ray vary on the scale of the
+    distance r from the body's centre (m-th derivatives ~ r^(1-m)). Each such cell is cut
+    into sub-cells no longer than sub * r (r its smallest on the cell) and integrated with
+    the 2-point Gauss rule, exact for cubics, so the relative error scales as sub^4: no error
+    estimate and no table search per node are needed. Cells outside the table's altitude
+    range are empty.
+    """
+    ao = tidx[k, 0]
+    na = tidx[k, 1]
+    do = tidx[k, 2]
+    nd = tidx[k, 3]
+    vo = tidx[k, 4]
     rho2 = py * py + pz * pz
-    rem = r_top * r_top - rho2
-    npop = kinds.shape[0]
-    if rem <= 0.0:
-        for p in range(npop):
-            out[p] = 0.0
-        return True
-    t_end = -px + math.sqrt(rem)
-    if t_end <= 0.0:
-        for p in range(npop):
-            out[p] = 0.0
-        return True
+    nbp = 0
+    bp[nbp] = 0.0
+    nbp += 1
+    nbp = _push(bp, nbp, -px, 0.0, t_end)
+    for i in range(na):
+        disc = (radius + talt[ao + i]) ** 2 - rho2
+        if disc > 0.0:
+            root = math.sqrt(disc)
+            nbp = _push(bp, nbp, -px - root, 0.0, t_end)
+            nbp = _push(bp, nbp, -px + root, 0.0, t_end)
     o[0] = px
     o[1] = py
     o[2] = pz
     v[0] = 1.0
     v[1] = 0.0
     v[2] = 0.0
-    nbp = 0
-    bp[nbp] = 0.0
-    nbp += 1
-    nbp = _push(bp, nbp, -px, 0.0, t_end)
-    nbp = _profile_breaks(o, v, 0.0, t_end, radius, kinds, params, tidx, talt, tdist, bp, nbp)
+    for j in range(nd):
+        nbp = _cone_roots(o, v, tdist[do + j], radius, 0.0, t_end, bp, nbp)
     if nbp < bp.shape[0]:
         bp[nbp] = t_end
         nbp += 1
     _sort_prefix(bp, nbp)
-    npan, conv = _adaptive(o, v, bp, nbp, math.inf, math.inf, radius, kinds, params, tidx, talt, tdist, tval,
-                           tol, 0.0, pa, pb, pval, perr, plit, out, outlit, dens, acc, GK7_X, GK7_WK, GK7_WG)
+    h0 = talt[ao]
+    h1 = talt[ao + na - 1]
+    d0 = tdist[do]
+    d1 = tdist[do + nd - 1]
+    total = 0.0
+    for c in range(nbp - 1):
+        u0 = bp[c]
+        u1 = bp[c + 1]
+        if not u1 > u0:
+            continue
+        x = px + 0.5 * (u0 + u1)
+        r = math.sqrt(x * x + rho2)
+        h = r - radius
+        if not (h >= h0 and h <= h1):
+            continue
+        lo = _bracket(talt, ao, na, h, h0, h1)
+        dc = min(max(radius * math.asin(min(1.0, max(-1.0, x / r))), d0), d1)
+        jlo = _bracket(tdist, do, nd, dc, d0, d1)
+        ha = talt[ao + lo]
+        dh = talt[ao + lo + 1] - ha
+        da = tdist[do + jlo]
+        dd = tdist[do + jlo + 1] - da
+        base = vo + lo * nd + jlo
+        v00 = tval[base]
+        v10 = tval[base + nd]
+        v01 = tval[base + 1]
+        v11 = tval[base + nd + 1]
+        xa = px + u0
+        xb = px + u1
+        rmin2 = rho2 if xa * xb < 0.0 else min(xa * xa, xb * xb) + rho2
+        m = max(1, int(math.ceil((u1 - u0) / (sub * math.sqrt(rmin2)))))
+        w = (u1 - u0) / m
+        cell = 0.0
+        for i in range(2 * m):
+            x = px + u0 + w * (i // 2 + 0.5 + 0.5 * G2_X[i % 2])
+            r = math.sqrt(x * x + rho2)
+            th = (r - radius - ha) / dh
+            td = (min(max(radius * math.asin(min(1.0, max(-1.0, x / r))), d0), d1) - da) / dd
+            cell += (1.0 - th) * ((1.0 - td) * v00 + td * v01) + th * ((1.0 - td) * v10 + td * v11)
+        total += 0.5 * w * cell
+    return params[k, 0] * total
+
+
+@_leaf
+def _sun_columns(px, py, pz, radius, r_top, kinds, kinds_an, params, tidx, talt, tdist, tval, tol, sub,
+                 bp, pa, pb, pval, perr, plit, out, outlit, dens, acc, o, v):
+    """Column [km cm^-3] of every population from (px, py, pz) toward the Sun (+x) to the model top.
+
+    Tables by _table_sun_column (sub: its sub-cell fraction); the other populations
+    (kinds_an: kinds with the tables set to _K_SKIP) by adaptive Gauss-Kronrod 7-15 to the
+    relative tolerance tol on their own break points. Returns whether those converged.
+    """
+    rho2 = py * py + pz * pz
+    rem = r_top * r_top - rho2
+    npop = kinds.shape[0]
+    for p in range(npop):
+        out[p] = 0.0
+    if rem <= 0.0:
+        return True
+    t_end = -px + math.sqrt(rem)
+    if t_end <= 0.0:
+        return True
+    conv = True
+    analytic = False
+    for p in range(npop):
+        if kinds_an[p] != _K_SKIP:
+            analytic = True
+    if analytic:
+        o[0] = px
+        o[1] = py
+        o[2] = pz
+        v[0] = 1.0
+        v[1] = 0.0
+        v[2] = 0.0
+        nbp = 0
+        bp[nbp] = 0.0
+        nbp += 1
+        nbp = _push(bp, nbp, -px, 0.0, t_end)
+        nbp = _profile_breaks(o, v, 0.0, t_end, radius, kinds_an, params, tidx, talt, tdist, bp, nbp)
+        bp[nbp] = t_end
+        nbp += 1
+        _sort_prefix(bp, nbp)
+        npan, conv = _adaptive(o, v, bp, nbp, math.inf, math.inf, radius, kinds_an, params, tidx, talt, tdist,
+                               tval, tol, 0.0, pa, pb, pval, perr, plit, out, outlit, dens, acc,
+                               GK_X, GK_WK, GK_WG)
+    for k in range(npop):
+        if kinds[k] == _K_TAB:
+            out[k] = _table_sun_column(k, px, py, pz, radius, t_end, params, tidx, talt, tdist, tval, sub, bp, o, v)
     return conv
+
+
+@_leaf
+def _piece_sample(j, k, o, v, radius, r_top, kinds, kinds_an, params, tidx, talt, tdist, tval, tol, sub,
+                  bp, pa, pb, pval, perr, plit, nsun, nsunlit, dens, acc, o2, v2, pc_x, pc_n):
+    """Sunward columns at sample k of piece j = [a, b] split at c (a, (a + c)/2, c, (c + b)/2, b)."""
+    s = pc_x[j, k // 2] if k % 2 == 0 else 0.5 * (pc_x[j, k // 2] + pc_x[j, k // 2 + 1])
+    conv = _sun_columns(o[0] + s * v[0], o[1] + s * v[1], o[2] + s * v[2], radius, r_top, kinds, kinds_an,
+                        params, tidx, talt, tdist, tval, tol, sub, bp, pa, pb, pval, perr, plit, nsun,
+                        nsunlit, dens, acc, o2, v2)
+    for q in range(kinds.shape[0]):
+        pc_n[j, k, q] = nsun[q]
+    return conv
+
+
+@_leaf
+def _piece_stats(j, pc_x, pc_n, pc_log, pc_islog, pc_err, pc_mean, pc_col, pa, pb, pval, plit, npan):
+    """Interpolation mode, error estimate, mean N^sun and per-population column of piece j.
+
+    pc_err[j, q]: largest |N - coarse| at samples 1 and 3, coarse being the quadratic through
+    samples 0, 2, 4 in N or, where all samples are positive and that fits better, in log N
+    (the piece then interpolates in log N too) [km cm^-3].
+    pc_col[j, p]: column of p over the sunlit panels' overlap with the piece [km cm^-3],
+    taken from the converged panels so that narrow layers between samples still count.
+    """
+    npop = pc_n.shape[2]
+    a = pc_x[j, 0]
+    c = pc_x[j, 1]
+    b = pc_x[j, 2]
+    # Lagrange weights of the quadratic through a, c, b at samples 1 and 3
+    m = 0.5 * (a + c)
+    wa1 = (m - c) * (m - b) / ((a - c) * (a - b))
+    wc1 = (m - a) * (m - b) / ((c - a) * (c - b))
+    wb1 = (m - a) * (m - c) / ((b - a) * (b - c))
+    m = 0.5 * (c + b)
+    wa3 = (m - c) * (m - b) / ((a - c) * (a - b))
+    wc3 = (m - a) * (m - b) / ((c - a) * (c - b))
+    wb3 = (m - a) * (m - c) / ((b - a) * (b - c))
+    for q in range(npop):
+        y0 = pc_n[j, 0, q]
+        y2 = pc_n[j, 2, q]
+        y4 = pc_n[j, 4, q]
+        err = max(abs(pc_n[j, 1, q] - (wa1 * y0 + wc1 * y2 + wb1 * y4)),
+                  abs(pc_n[j, 3, q] - (wa3 * y0 + wc3 * y2 + wb3 * y4)))
+        pos = True
+        for k in range(_PIECE_NODES):
+            if not pc_n[j, k, q] > 0.0:
+                pos = False
+        pc_islog[j, q] = False
+        if pos:
+            # log N where that interpolates better (exponential-like layers), N itself
+            # elsewhere (e.g. N^sun falling linearly to zero where the ray leaves the top)
+            for k in range(_PIECE_NODES):
+                pc_log[j, k, q] = math.log(pc_n[j, k, q])
+            y0 = pc_log[j, 0, q]
+            y2 = pc_log[j, 2, q]
+            y4 = pc_log[j, 4, q]
+            err_log = max(abs(pc_n[j, 1, q] - math.exp(wa1 * y0 + wc1 * y2 + wb1 * y4)),
+                          abs(pc_n[j, 3, q] - math.exp(wa3 * y0 + wc3 * y2 + wb3 * y4)))
+            if err_log < err:
+                err = err_log
+                pc_islog[j, q] = True
+        pc_err[j, q] = err
+        pc_mean[j, q] = ((c - a) * (pc_n[j, 0, q] + 4.0 * pc_n[j, 1, q] + pc_n[j, 2, q])
+                         + (b - c) * (pc_n[j, 2, q] + 4.0 * pc_n[j, 3, q] + pc_n[j, 4, q])) / (6.0 * (b - a))
+    for p in range(npop):
+        pc_col[j, p] = 0.0
+    for i in range(npan):
+        if plit[i]:
+            ov = min(pb[i], b) - max(pa[i], a)
+            if ov > 0.0:
+                f = ov / (pb[i] - pa[i])
+                for p in range(npop):
+                    pc_col[j, p] += f * pval[i, p]
+
+
+@_leaf
+def _piece_value(j, s, q, pc_x, pc_n, pc_log, pc_islog):
+    """N_q^sun at s from piece j (in log N where flagged).
+
+    The quartic through the 5 samples where the piece is split at its midpoint (smooth
+    N^sun: error O(h^5)), otherwise the quadratic through the 3 samples of s's half (the
+    split is then a grazing point, where N^sun is not smooth).
+    """
+    a = pc_x[j, 0]
+    c = pc_x[j, 1]
+    b = pc_x[j, 2]
+    lg = pc_islog[j, q]
+    if abs(c - 0.5 * (a + b)) <= 1e-9 * (b - a):
+        t = min(max(4.0 * (s - a) / (b - a), 0.0), 4.0)
+        num = 0.0
+        den = 0.0
+        for k in range(_PIECE_NODES):
+            y = pc_log[j, k, q] if lg else pc_n[j, k, q]
+            dt = t - k
+            if dt == 0.0:
+                num = y
+                den = 1.0
+                break
+            w = _BARY5[k] / dt
+            num += w * y
+            den += w
+        r = num / den
+    else:
+        k = 0 if s <= c else 2
+        lo = pc_x[j, k // 2]
+        t = min(max(2.0 * (s - lo) / (pc_x[j, k // 2 + 1] - lo), 0.0), 2.0)
+        y0 = pc_log[j, k, q] if lg else pc_n[j, k, q]
+        y1 = pc_log[j, k + 1, q] if lg else pc_n[j, k + 1, q]
+        y2 = pc_log[j, k + 2, q] if lg else pc_n[j, k + 2, q]
+        r = 0.5 * (t - 1.0) * (t - 2.0) * y0 - t * (t - 2.0) * y1 + 0.5 * t * (t - 1.0) * y2
+    return math.exp(r) if lg else r
+
+
+@_leaf
+def _grazing_points(o, v, a, b, radius, kinds, tidx, talt, bp, nbp):
+    """Ray parameters in (a, b) whose sunward ray grazes a table's altitude-node sphere.
+
+    There (p_y^2 + p_z^2 = (R + h_i)^2 with p_x < 0) N^sun has a weak singularity: the
+    sunward chord through the kink (or, at the table's edges, the step) of the bilinear
+    density opens like (R + h_i - rho)^(3/2) (or ^(1/2)). Along limb rays these points come
+    nearly evenly spaced, a pattern equally spaced samples can alias, so pieces end there.
+    """
+    qa = v[1] * v[1] + v[2] * v[2]
+    if qa <= 1e-300:
+        return nbp
+    qb = o[1] * v[1] + o[2] * v[2]
+    qc0 = o[1] * o[1] + o[2] * o[2]
+    for k in range(kinds.shape[0]):
+        if kinds[k] != _K_TAB:
+            continue
+        for i in range(tidx[k, 1]):
+            rr = radius + talt[tidx[k, 0] + i]
+            disc = qb * qb - qa * (qc0 - rr * rr)
+            if rr <= 0.0 or disc <= 0.0:
+                continue
+            root = math.sqrt(disc)
+            for s in ((-qb - root) / qa, (-qb + root) / qa):
+                if o[0] + s * v[0] < 0.0:
+                    nbp = _push(bp, nbp, s, a, b)
+    return nbp
+
+
+@_leaf
+def _sun_pieces(o, v, lo0, hi0, lo1, hi1, s_tan, radius, r_top, kinds, kinds_an, params, tidx, talt, tdist, tval,
+                tol, floor_frac, pa, pb, pval, plit, npan, bp2, pa2, pb2, pval2, perr2, plit2, nsun, nsunlit,
+                dens, acc, o2, v2, bp3, pc_x, pc_n, pc_log, pc_islog, pc_err, pc_mean, pc_col,
+                est, target, colsum, nmax):
+    """Interpolation pieces of N^sun over the sunlit intervals [lo0, hi0] and [lo1, hi1] (empty if hi <= lo).
+
+    Initial pieces run between the interval ends and the tangent point s_tan; the grazing
+    points (_grazing_points) in between become, alternately, piece ends and the split
+    points c of pieces [a, b], so that no piece's quadratic halves straddle one. Then the
+    piece with the largest weighted error is bisected at c until, for every pair (p, q),
+    _PIECE_ERROR_FACTOR * sum_j col_jp err_jq <= tol * max(K_pq, floor_frac * col_p * max N_q),
+    K_pq ~ sum_j col_jp mean_jq. pc_x[j] = (a, c, b); est, target: float64[P, P] and
+    colsum, nmax: float64[P] scratch. Returns (number of pieces, converged).
+    """
+    npop = kinds.shape[0]
+    maxpc = pc_x.shape[0]
+    tol_sun = _SUN_TOLERANCE_FRACTION * tol
+    sub = min(2.0 * _SUB_CELL_FRACTION, _SUB_CELL_FRACTION * (tol_sun / _SUB_CELL_TOLERANCE) ** 0.25)
+    conv = True
+    npc = np.int64(0)  # (not a literal 0: numba would compile the callees for Literal[int](0) too)
+    for part in range(4):
+        lo = lo0 if part < 2 else lo1
+        hi = hi0 if part < 2 else hi1
+        gap = 1e-9 + 1e-13 * abs(hi)
+        if s_tan > lo + gap and s_tan < hi - gap:
+            if part % 2 == 0:
+                hi = s_tan
+            else:
+                lo = s_tan
+        elif part % 2 == 1:
+            continue
+        if not hi - lo > gap:
+            continue
+        nb = _grazing_points(o, v, lo + gap, hi - gap, radius, kinds, tidx, talt, bp3, np.int64(0))
+        _sort_prefix(bp3, nb)
+        a = lo
+        i = 0
+        while True:
+            while i < nb and bp3[i] - a <= gap:
+                i += 1  # merge break points closer than `gap`
+            if i >= nb:
+                b = hi
+                c = 0.5 * (a + b)
+            else:
+                c = bp3[i]
+                i += 1
+                while i < nb and bp3[i] - c <= gap:
+                    i += 1
+                b = bp3[i] if i < nb else hi
+                i += 1
+                if min(c - a, b - c) < 0.2 * (b - a):  # too lopsided for the coarse quadratic
+                    b = c
+                    c = 0.5 * (a + b)
+                    i -= 1
+            if npc >= maxpc:
+                conv = False
+                break
+            pc_x[npc, 0] = a
+            pc_x[npc, 1] = c
+            pc_x[npc, 2] = b
+            first = 0
+            if npc > 0 and pc_x[npc - 1, 2] == a:  # shares its first sample with the previous piece
+                first = 1
+                for q in range(npop):
+                    pc_n[npc, 0, q] = pc_n[npc - 1, _PIECE_NODES - 1, q]
+            for k in range(first, _PIECE_NODES):
+                if not _piece_sample(npc, k, o, v, radius, r_top, kinds, kinds_an, params, tidx, talt, tdist, tval,
+                                     tol_sun, sub, bp2, pa2, pb2, pval2, perr2, plit2, nsun, nsunlit, dens, acc,
+                                     o2, v2, pc_x, pc_n):
+                    conv = False
+            _piece_stats(npc, pc_x, pc_n, pc_log, pc_islog, pc_err, pc_mean, pc_col, pa, pb, pval, plit, npan)
+            npc += 1
+            a = b
+            if not b < hi:
+                break
+    while npc > 0:
+        for p in range(npop):
+            colsum[p] = 0.0
+            nmax[p] = 0.0
+            for q in range(npop):
+                est[p, q] = 0.0
+                target[p, q] = 0.0
+        for j in range(npc):
+            for q in range(npop):
+                for k in range(_PIECE_NODES):
+                    nmax[q] = max(nmax[q], pc_n[j, k, q])
+            for p in range(npop):
+                colsum[p] += pc_col[j, p]
+                for q in range(npop):
+                    est[p, q] += pc_col[j, p] * pc_err[j, q]
+                    target[p, q] += pc_col[j, p] * pc_mean[j, q]
+        done = True
+        for p in range(npop):
+            for q in range(npop):
+                est[p, q] *= _PIECE_ERROR_FACTOR
+                target[p, q] = tol * max(target[p, q], floor_frac * colsum[p] * nmax[q], 1e-300)
+                if est[p, q] > target[p, q]:
+                    done = False
+        if done:
+            break
+        if npc >= maxpc:
+            conv = False
+            break
+        worst = 0.0
+        iw = np.int64(-1)
+        for j in range(npc):
+            score = 0.0
+            for p in range(npop):
+                for q in range(npop):
+                    if est[p, q] > target[p, q]:
+                        score = max(score, pc_col[j, p] * pc_err[j, q] / target[p, q])
+            if score > worst:
+                worst = score
+                iw = j
+        if iw < 0 or not (pc_x[iw, 1] - pc_x[iw, 0] > 1e-9 and pc_x[iw, 2] - pc_x[iw, 1] > 1e-9):
+            conv = False  # nothing left to refine at round-off width
+            break
+        # bisect at c: samples 0-2 of the parent become 0, 2, 4 of the left half, 2-4 those of the right
+        pc_x[npc, 0] = pc_x[iw, 1]
+        pc_x[npc, 1] = 0.5 * (pc_x[iw, 1] + pc_x[iw, 2])
+        pc_x[npc, 2] = pc_x[iw, 2]
+        pc_x[iw, 2] = pc_x[iw, 1]
+        pc_x[iw, 1] = 0.5 * (pc_x[iw, 0] + pc_x[iw, 1])
+        for q in range(npop):
+            pc_n[npc, 0, q] = pc_n[iw, 2, q]
+            pc_n[npc, 2, q] = pc_n[iw, 3, q]
+            pc_n[npc, 4, q] = pc_n[iw, 4, q]
+            pc_n[iw, 4, q] = pc_n[iw, 2, q]
+            pc_n[iw, 2, q] = pc_n[iw, 1, q]
+        for j in (iw, npc):
+            for k in range(1, _PIECE_NODES, 2):
+                if not _piece_sample(j, k, o, v, radius, r_top, kinds, kinds_an, params, tidx, talt, tdist, tval,
+                                     tol_sun, sub, bp2, pa2, pb2, pval2, perr2, plit2, nsun, nsunlit, dens, acc,
+                                     o2, v2, pc_x, pc_n):
+                    conv = False
+            _piece_stats(j, pc_x, pc_n, pc_log, pc_islog, pc_err, pc_mean, pc_col, pa, pb, pval, plit, npan)
+        npc += 1
+    return npc, conv
+
+
+@_leaf
+def _extinction_part(a, b, jp, l, o, v, radius, kinds, params, tidx, talt, tdist, tval, dens, kd, cum, pc_x,
+                      pc_n, pc_log, pc_islog, k_sun, k_obs):
+    """Add int_a^b n_p (N_q^sun + N_q^obs) ds to k_sun, k_obs[:, :, l] by the 15-point Kronrod rule.
+
+    N^sun from piece jp (none if jp < 0); N^obs = cum[q] (the column from the ray start to a)
+    plus the integral of the 15-node interpolant of n_q (GK_S); cum is advanced to b.
+    """
+    npop = kinds.shape[0]
+    half = 0.5 * (b - a)
+    mid = 0.5 * (a + b)
+    for g in range(GK_X.shape[0]):
+        s = mid + half * GK_X[g]
+        _densities_at(o[0] + s * v[0], o[1] + s * v[1], o[2] + s * v[2], radius, kinds, params, tidx, talt, tdist,
+                      tval, dens)
+        for q in range(npop):
+            kd[g, q] = dens[q]
+    for j in range(GK_X.shape[0]):
+        s = mid + half * GK_X[j]
+        w = half * GK_WK[j]
+        for q in range(npop):
+            part = 0.0
+            for g in range(GK_X.shape[0]):
+                part += GK_S[j, g] * kd[g, q]
+            nobs = cum[q] + half * part
+            ns = _piece_value(jp, s, q, pc_x, pc_n, pc_log, pc_islog) if jp >= 0 else 0.0
+            for p in range(npop):
+                k_sun[p, q, l] += w * kd[j, p] * ns
+                k_obs[p, q, l] += w * kd[j, p] * nobs
+    for q in range(npop):
+        part = 0.0
+        for g in range(GK_X.shape[0]):
+            part += GK_WK[g] * kd[g, q]
+        cum[q] += half * part
+
+
+@_leaf
+def _extinction_weights(l, o, v, radius, kinds, params, tidx, talt, tdist, tval, pa, pb, pval, plit, npan, order,
+                        pc_x, pc_n, pc_log, pc_islog, npc, pc_start, pc_order, dens, kd, cum, nobs, k_sun, k_obs):
+    """Fill k_sun, k_obs[:, :, l]: the 15-point Kronrod rule (which converged the columns) on each sunlit
+    panel cut at the piece ends, so that n_p and the interpolated N_q^sun are both smooth on every part
+    (N^sun can steepen sharply toward a shadow edge). order, pc_order, cum, nobs: scratch.
+    """
+    npop = kinds.shape[0]
+    for j in range(npc):
+        pc_start[j] = pc_x[j, 0]
+    _argsort(pc_start, npc, pc_order)
+    _argsort(pa, npan, order)
+    jj = 0
+    for p in range(npop):
+        cum[p] = 0.0
+    for ii in range(npan):
+        i = order[ii]
+        if plit[i]:
+            for q in range(npop):
+                nobs[q] = cum[q]
+            a = pa[i]
+            while jj < npc - 1 and pc_x[pc_order[jj], 2] <= a:
+                jj += 1
+            while True:
+                b = pb[i]
+                if jj < npc - 1:
+                    b = min(b, pc_x[pc_order[jj], 2])
+                if b > a:
+                    _extinction_part(a, b, pc_order[jj] if npc > 0 else -1, l, o, v, radius, kinds, params, tidx,
+                                     talt, tdist, tval, dens, kd, nobs, pc_x, pc_n, pc_log, pc_islog, k_sun, k_obs)
+                if b >= pb[i]:
+                    break
+                a = b
+                jj += 1
+        for q in range(npop):
+            cum[q] += pval[i, q]
 
 
 @njit(cache=True)
@@ -442,9 +969,11 @@ def integrate_rays_kernel(observers, looks, radius, top_altitude, kinds, params,
     kinds, params, tidx, talt, tdist, tval :
         Fields of dustrt.density.PackedProfiles.
     tol, tol_inner : float
-        Relative tolerance of the ray columns and of the sunward columns N^sun.
+        Relative tolerance of the ray columns and of the extinction weights (the sunward
+        columns N^sun themselves are integrated to _SUN_TOLERANCE_FRACTION * tol_inner).
     floor_frac : float
-        Sunlit columns below floor_frac * total column are converged to tol * floor_frac * total.
+        Sunlit columns below floor_frac * total column are converged to tol * floor_frac * total;
+        likewise K_pq below floor_frac * (sunlit column of p) * max N_q^sun.
     do_extinction : bool
         Compute k_sun and k_obs.
     max_panels, max_breaks : int
@@ -481,6 +1010,27 @@ def integrate_rays_kernel(observers, looks, radius, top_altitude, kinds, params,
     nobs = np.empty(npop)
     cum = np.empty(npop)
     acc = np.empty((4, npop))
+    kd = np.empty((GK_X.shape[0], npop))
+    bp3 = np.empty(max_breaks)
+    kinds_an = kinds.copy()  # the populations _adaptive integrates along sunward rays
+    for p in range(npop):
+        if kinds[p] == _K_TAB:
+            kinds_an[p] = _K_SKIP
+    maxpc = 2 * max_breaks + _MAX_BISECTIONS  # initial pieces (<= 2 intervals x break points) + bisections
+    pc_x = np.empty((maxpc, 3))
+    pc_start = np.empty(maxpc)
+    pc_order = np.empty(maxpc, dtype=np.int64)
+    order = np.empty(max_panels, dtype=np.int64)
+    pc_n = np.empty((maxpc, _PIECE_NODES, npop))
+    pc_log = np.empty((maxpc, _PIECE_NODES, npop))
+    pc_islog = np.empty((maxpc, npop), dtype=np.bool_)
+    pc_err = np.empty((maxpc, npop))
+    pc_mean = np.empty((maxpc, npop))
+    pc_col = np.empty((maxpc, npop))
+    est = np.empty((npop, npop))
+    target = np.empty((npop, npop))
+    colsum = np.empty(npop)
+    nmax = np.empty(npop)
     o = np.empty(3)
     v = np.empty(3)
     o2 = np.empty(3)
@@ -579,45 +1129,13 @@ def integrate_rays_kernel(observers, looks, radius, top_altitude, kinds, params,
             sunlit[p, l] = totlit[p]
         if not do_extinction:
             continue
-        # Extinction weights on the converged panels, in ray order; the 7 Gauss nodes of
-        # each converged panel integrate n_p times the smooth columns N_q to about tol.
-        order = np.argsort(pa[:npan])
-        for p in range(npop):
-            cum[p] = 0.0
-        for ii in range(npan):
-            i = order[ii]
-            a = pa[i]
-            b = pb[i]
-            if plit[i]:
-                half = 0.5 * (b - a)
-                mid = 0.5 * (a + b)
-                for j in range(G7_X.shape[0]):
-                    s = mid + half * G7_X[j]
-                    px = o[0] + s * v[0]
-                    py = o[1] + s * v[1]
-                    pz = o[2] + s * v[2]
-                    _densities_at(px, py, pz, radius, kinds, params, tidx, talt, tdist, tval, dens)
-                    # N^obs(s) = column up to the panel start + 7-point Gauss on [a, s]
-                    hs = 0.5 * (s - a)
-                    for q in range(npop):
-                        nobs[q] = 0.0
-                    for g in range(G7_X.shape[0]):
-                        t = a + hs * (1.0 + G7_X[g])
-                        _densities_at(o[0] + t * v[0], o[1] + t * v[1], o[2] + t * v[2], radius,
-                                      kinds, params, tidx, talt, tdist, tval, dens_q)
-                        for q in range(npop):
-                            nobs[q] += G7_W[g] * dens_q[q]
-                    for q in range(npop):
-                        nobs[q] = cum[q] + hs * nobs[q]
-                    conv2 = _sun_columns(px, py, pz, radius, r_top, kinds, params, tidx, talt, tdist, tval,
-                                         tol_inner, bp2, pa2, pb2, pval2, perr2, plit2, nsun, nsunlit, dens_q,
-                                         acc, o2, v2)
-                    if not conv2:
-                        converged[l] = False
-                    w = half * G7_W[j]
-                    for p in range(npop):
-                        for q in range(npop):
-                            k_sun[p, q, l] += w * dens[p] * nsun[q]
-                            k_obs[p, q, l] += w * dens[p] * nobs[q]
-            for q in range(npop):
-                cum[q] += pval[i, q]
+        # N^sun on interpolation pieces of the sunlit intervals [s0, s1] minus (dlo, dhi)
+        npc, conv2 = _sun_pieces(o, v, s0, min(s1, dlo), max(s0, dhi), s1, -bq, radius, r_top, kinds, kinds_an, params,
+                                 tidx, talt, tdist, tval, tol_inner, floor_frac, pa, pb, pval, plit, npan,
+                                 bp2, pa2, pb2, pval2, perr2, plit2, nsun, nsunlit, dens_q, acc, o2, v2,
+                                 bp3, pc_x, pc_n, pc_log, pc_islog, pc_err, pc_mean, pc_col,
+                                 est, target, colsum, nmax)
+        if not conv2:
+            converged[l] = False
+        _extinction_weights(l, o, v, radius, kinds, params, tidx, talt, tdist, tval, pa, pb, pval, plit, npan, order,
+                            pc_x, pc_n, pc_log, pc_islog, npc, pc_start, pc_order, dens, kd, cum, nobs, k_sun, k_obs)

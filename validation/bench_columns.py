@@ -11,7 +11,9 @@ Reference: scipy.integrate.quad per line of sight and population on each sunlit
 segment (found with dustrt.geometry, numpy), epsrel equal to the integrator's
 relative_tolerance, the tangent point passed as a break point. A tight reference
 (epsrel = 1e-10, table-node crossings as break points) on a subset of rays, plus the
-ray where the two differ most, measures the accuracy both achieve.
+ray where the two differ most, measures the accuracy both achieve. The extinction
+weights are compared with a run at relative_tolerance 1e-8 (weights then aimed at 1e-6;
+that setting agrees with nested brute-force quadrature in tests/test_los.py).
 
 Run:  python validation/bench_columns.py [--tolerance 1e-4]
 Writes validation/bench_columns_report.txt beside this script.
@@ -124,6 +126,13 @@ def main(argv=None):
     res_ext = integrate_columns(observer, looks, RADIUS_KM, TOP_KM, profiles, tol, extinction=True)
     t_ext = time.perf_counter() - t0
 
+    res_tight = integrate_columns(observer, looks, RADIUS_KM, TOP_KM, profiles, 1e-8, extinction=True)
+    ext_err = {
+        part: np.max(np.abs(getattr(res_ext, name) / getattr(res_tight, name) - 1.0))
+        for part, name in (("K", "extinction_weight_cm4"), ("sun part", "extinction_weight_sun_cm4"),
+                           ("observer part", "extinction_weight_observer_cm4"))
+    }
+
     t0 = time.perf_counter()
     ref = np.array([reference_sunlit(observer, looks, p, tol) for p in profiles])
     t_ref = time.perf_counter() - t0
@@ -143,7 +152,9 @@ def main(argv=None):
         f"rays: {len(looks)}, populations: {len(profiles)}, relative_tolerance: {tol:g}",
         f"rays crossing the shadow: {int(np.sum(res.column_cm2[0] > res.sunlit_column_cm2[0] * (1 + 1e-12)))}",
         f"integrate_columns, extinction off: {t_fast * 1e3:.1f} ms",
-        f"integrate_columns, extinction on:  {t_ext * 1e3:.1f} ms",
+        f"integrate_columns, extinction on:  {t_ext * 1e3:.1f} ms ({t_ext / t_fast:.0f}x extinction off)",
+        "extinction weights, largest relative difference vs relative_tolerance=1e-8: "
+        + ", ".join(f"{part} {err:.1e}" for part, err in ext_err.items()),
         f"scipy quad reference (sunlit columns only): {t_ref * 1e3:.0f} ms",
         f"speed ratio (reference / extinction off): {t_ref / t_fast:.0f}x",
         f"largest relative difference of sunlit columns vs reference: {np.max(rel):.2e}",
