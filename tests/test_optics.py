@@ -187,3 +187,16 @@ def test_material_csv(tmp_path):
     p.write_text("wavelength_nm,n\n300,1.5\n700,1.7\n")
     with pytest.raises(ValueError, match="missing column 'k'"):
         read_material_csv(p)
+
+
+def test_rayleigh_phase_function_and_polarisation():
+    # Rayleigh scattering (x ≪ 1; Bohren & Huffman 1983 §5.2): P(θ) = 3/4 (1 + cos²θ) with the 4π
+    # normalisation, and degree of linear polarisation (1 - cos²θ)/(1 + cos²θ), +1 at 90°
+    # (perpendicular polarisation dominates: the sign convention of the output).
+    th = np.array([0.0, 30.0, 60.0, 90.0, 120.0, 180.0])
+    o = population_optics(constant_material(1.5, 0.0), Monodisperse(0.001), [1000.0], th)
+    mu = np.cos(np.deg2rad(th))
+    x = 2 * np.pi * 0.001 / 1.0
+    np.testing.assert_allclose(o.phase_function[0], 0.75 * (1 + mu**2), rtol=10 * x**2)
+    np.testing.assert_allclose(o.degree_of_linear_polarization[0], (1 - mu**2) / (1 + mu**2), atol=10 * x**2)
+    assert o.asymmetry_parameter[0] == pytest.approx(0.0, abs=10 * x**2)
