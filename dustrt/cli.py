@@ -151,74 +151,57 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"dustrt {__version__}")
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
-    def common(p):
+    def command(name, func, summary, description, *, inputs, output, plot=None):
+        """One subcommand: its inputs ('scenario?', 'scenario', 'observation'), -o, --plot, -q."""
+        p = sub.add_parser(name, help=summary, description=description)
+        if "observation" in inputs:
+            p.add_argument("observation", metavar="OBS.nc", help="calibrated observation file")
+            p.add_argument("--scenario", required=True, metavar="SCENARIO", help="scenario TOML with the hypotheses")
+        elif "scenario?" in inputs:
+            p.add_argument("scenario", nargs="?", default=DEMO, metavar="SCENARIO",
+                           help="scenario TOML (default: demo)")
+        else:
+            p.add_argument("scenario", metavar="SCENARIO", help="scenario TOML")
+        p.add_argument("-o", "--output", required=True, metavar=output, help="netCDF file to write")
+        if plot:
+            p.add_argument("--plot", metavar="FILE.png", help=plot)
         p.add_argument("-q", "--quiet", action="store_true", help="no progress or status messages")
+        p.set_defaults(func=func)
+        return p
 
-    p = sub.add_parser("optics", help="size-averaged Mie optics of the scenario's grain populations",
-                       description="Compute cross sections, albedo, asymmetry parameter, phase function and "
-                                   "polarisation of each [[population]] on the scenario's wavelength and "
-                                   "angle grids, and write them to netCDF.")
-    p.add_argument("scenario", nargs="?", default=DEMO, metavar="SCENARIO", help="scenario TOML (default: demo)")
-    p.add_argument("-o", "--output", required=True, metavar="OUT.nc", help="netCDF file to write")
-    p.add_argument("--plot", metavar="FILE.png", help="also draw cross sections and phase functions")
-    common(p)
-    p.set_defaults(func=_cmd_optics)
-
-    p = sub.add_parser("limb", help="limb radiance of the hypothesised dust (the main job)",
-                       description="Integrate the sunlit dust columns along each line of sight and form the "
-                                   "spectral radiance per population and in total.")
-    p.add_argument("scenario", nargs="?", default=DEMO, metavar="SCENARIO", help="scenario TOML (default: demo)")
-    p.add_argument("-o", "--output", required=True, metavar="OUT.nc", help="netCDF file to write")
-    p.add_argument("--plot", metavar="FILE.png", help="also draw limb profiles and spectra")
-    common(p)
-    p.set_defaults(func=_cmd_limb)
-
-    p = sub.add_parser("observe", help="simulated calibrated observations (expected and noisy)",
-                       description="Dust + zodiacal light through the [instrument]: expected counts, noise and, "
-                                   "with --realizations, noisy calibrated spectra.")
-    p.add_argument("scenario", nargs="?", default=DEMO, metavar="SCENARIO", help="scenario TOML (default: demo)")
-    p.add_argument("-o", "--output", required=True, metavar="OBS.nc", help="netCDF file to write")
+    command("optics", _cmd_optics, "size-averaged Mie optics of the scenario's grain populations",
+            "Compute cross sections, albedo, asymmetry parameter, phase function and polarisation of each "
+            "[[population]] on the scenario's wavelength and angle grids, and write them to netCDF.",
+            inputs=("scenario?",), output="OUT.nc", plot="also draw cross sections and phase functions")
+    command("limb", _cmd_limb, "limb radiance of the hypothesised dust (the main job)",
+            "Integrate the sunlit dust columns along each line of sight and form the spectral radiance "
+            "per population and in total.",
+            inputs=("scenario?",), output="OUT.nc", plot="also draw limb profiles and spectra")
+    p = command("observe", _cmd_observe, "simulated calibrated observations (expected and noisy)",
+                "Dust + zodiacal light through the [instrument]: expected counts, noise and, with "
+                "--realizations, noisy calibrated spectra.", inputs=("scenario?",), output="OBS.nc")
     p.add_argument("--realizations", type=_count, default=0, metavar="N",
                    help="number of noisy realisations (0: expected values only)")
     p.add_argument("--seed", type=_count, default=None, metavar="S",
                    help="random seed, an integer >= 0 (reproducible noise)")
-    common(p)
-    p.set_defaults(func=_cmd_observe)
-
-    p = sub.add_parser("separate", help="separate dust from zodiacal light by colour",
-                       description="Fit each observed spectrum with zodiacal light plus the dust template of "
-                                   "each hypothesised population (weighted least squares).")
-    p.add_argument("observation", metavar="OBS.nc", help="calibrated observation file")
-    p.add_argument("--scenario", required=True, metavar="SCENARIO", help="scenario TOML with the hypotheses")
-    p.add_argument("-o", "--output", required=True, metavar="RESULT.nc", help="netCDF file to write")
-    p.add_argument("--plot", metavar="FILE.png", help="also draw data, components and residuals")
-    common(p)
-    p.set_defaults(func=_cmd_separate)
-
-    p = sub.add_parser("limit", help="upper limits on grain density from a non-detection",
-                       description="Feldman-Cousins (default) or flat-prior Bayesian limits on each population's "
-                                   "density normalisation, per observation and joint.")
-    p.add_argument("observation", metavar="OBS.nc", help="calibrated observation file")
-    p.add_argument("--scenario", required=True, metavar="SCENARIO", help="scenario TOML with the hypotheses")
-    p.add_argument("-o", "--output", required=True, metavar="LIMITS.nc", help="netCDF file to write")
+    command("separate", _cmd_separate, "separate dust from zodiacal light by colour",
+            "Fit each observed spectrum with zodiacal light plus the dust template of each hypothesised "
+            "population (weighted least squares).",
+            inputs=("observation",), output="RESULT.nc", plot="also draw data, components and residuals")
+    p = command("limit", _cmd_limit, "upper limits on grain density from a non-detection",
+                "Feldman-Cousins (default) or flat-prior Bayesian limits on each population's density "
+                "normalisation, per spectrum, per observation and joint.",
+                inputs=("observation",), output="LIMITS.nc", plot="also draw the limit vs grain radius")
     p.add_argument("--method", choices=("feldman-cousins", "bayesian-flat"), default=None,
                    help="interval construction (default: the scenario's [limits] method)")
-    p.add_argument("--plot", metavar="FILE.png", help="also draw the limit vs grain radius")
-    common(p)
-    p.set_defaults(func=_cmd_limit)
-
-    p = sub.add_parser("sweep", help="minimum detectable density over a parameter grid",
-                       description="Sweep grain radius and/or any numeric scenario key ([sweep] table) and "
-                                   "compute the minimum detectable density, in chunks on dask.")
-    p.add_argument("scenario", metavar="SCENARIO", help="scenario TOML with a [sweep] table")
-    p.add_argument("-o", "--output", required=True, metavar="SWEEP.nc", help="netCDF file to write")
-    p.add_argument("--plot", metavar="FILE.png", help="also draw the minimum detectable density")
+    p = command("sweep", _cmd_sweep, "minimum detectable density over a parameter grid",
+                "Sweep grain radius and/or any numeric scenario key ([sweep] table) and compute the minimum "
+                "detectable density, in chunks on dask.",
+                inputs=("scenario",), output="SWEEP.nc", plot="also draw the minimum detectable density")
     g = p.add_mutually_exclusive_group()
     g.add_argument("--scheduler", metavar="ADDRESS", help="address of an existing dask.distributed scheduler")
     g.add_argument("--workers", type=_positive, metavar="N", help="local cluster size (default: serial in-process)")
     p.add_argument("--resume", action="store_true", help="reuse finished chunks of an interrupted sweep")
-    common(p)
-    p.set_defaults(func=_cmd_sweep)
     return parser
 
 
