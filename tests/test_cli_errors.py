@@ -162,3 +162,17 @@ def test_all_nan_observation(tmp_path, capsys, obs):
     ds["radiance"][:] = np.nan
     ds.to_netcdf(tmp_path / "nan.nc", engine="h5netcdf")
     run_bad(tmp_path, capsys, ["separate", str(tmp_path / "nan.nc"), "--scenario", str(scen)], "nan.nc", "radiance")
+
+
+def test_zero_throughput_bins_deliver_no_data(tmp_path):
+    # bins where the throughput table is zero carry no signal: NaN radiance, not inf
+    (tmp_path / "thr.csv").write_text("wavelength_nm,throughput\n250,0.0\n400,0.0\n401,0.1\n800,0.1\n")
+    p = scenario_with(tmp_path, "throughput = 0.1", 'throughput = "thr.csv"')
+    out = tmp_path / "o.nc"
+    assert main(["observe", str(p), "-o", str(out), "--realizations", "2", "--seed", "3", "-q"]) == 0
+    ds = xr.open_dataset(out, engine="h5netcdf")
+    wl = ds["wavelength_nm"].values
+    rad = ds["radiance"].values
+    assert np.all(np.isnan(rad[..., wl < 396])) and np.all(np.isfinite(rad[..., wl > 410]))
+    ds.close()
+    assert main(["limit", str(out), "--scenario", str(p), "-o", str(tmp_path / "l.nc"), "-q"]) == 0
