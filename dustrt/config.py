@@ -408,6 +408,13 @@ def scenario_from_dict(raw: dict, source: str = "<scenario>", base_dir: Path | N
         raise top.error("observer.altitude_km", "must be above the surface (> 0)")
     _check_view_against_observer(scenario, top)
     _check_spectral_coverage(scenario, top)
+    if scenario.sweep is not None and any(k == "radius_um" for k, _ in scenario.sweep.axes):
+        for i, p in enumerate(scenario.populations):
+            if p.size.kind == "power-law":
+                raise top.error("sweep.radius_um",
+                                f"population[{i}] ({p.name!r}) has a power-law size distribution, which has no "
+                                "single radius to sweep; sweep 'population.NAME.size.max_radius_um' (or "
+                                "min_radius_um, slope) instead")
     return scenario
 
 

@@ -180,9 +180,10 @@ class PowerLaw:
         return self.min_radius_um
 
     def with_radius(self, radius_um: float) -> "PowerLaw":
-        """Copy with the lower bound moved to ``radius_um`` (the range width in ln a is kept)."""
-        ratio = self.max_radius_um / self.min_radius_um
-        return replace(self, min_radius_um=float(radius_um), max_radius_um=float(radius_um) * ratio)
+        """Not defined: a power law has no single characteristic radius to sweep."""
+        raise ValueError("a radius_um sweep applies to monodisperse (radius) and lognormal (median) "
+                         "populations; for a power law sweep its bounds by dotted key, e.g. "
+                         "'population.NAME.size.max_radius_um'")
 
     def _norm(self) -> float:
         lo, hi = self.bounds_um

@@ -176,3 +176,14 @@ def test_zero_throughput_bins_deliver_no_data(tmp_path):
     assert np.all(np.isnan(rad[..., wl < 396])) and np.all(np.isfinite(rad[..., wl > 410]))
     ds.close()
     assert main(["limit", str(out), "--scenario", str(p), "-o", str(tmp_path / "l.nc"), "-q"]) == 0
+
+
+def test_radius_sweep_rejects_power_law_populations(tmp_path, capsys):
+    p = scenario_with(tmp_path, 'size = { distribution = "monodisperse", radius_um = 0.08 }',
+                      'size = { distribution = "power-law", min_radius_um = 0.01, max_radius_um = 1.0, slope = 3.5 }')
+    p.write_text(p.read_text() + '\n[sweep]\nradius_um = [0.01, 0.1]\n')
+    run_bad(tmp_path, capsys, ["sweep", str(p)], "sweep.radius_um", "max_radius_um")
+    # sweeping the power law's bound by its dotted key works
+    text = p.read_text().replace("radius_um = [0.01, 0.1]", '"population.fine.size.max_radius_um" = [0.5, 1.0]')
+    p.write_text(text)
+    assert main(["sweep", str(p), "-o", str(tmp_path / "ok.nc"), "-q"]) == 0
