@@ -39,6 +39,14 @@ class _Table:
         self.base_dir = base_dir
         self.used: set[str] = set()
 
+    def _unknown_hint(self) -> str:
+        """Mention keys not (yet) recognised here: a missing key is often a misspelt one."""
+        known = set(self.used)
+        for k in _KNOWN_KEYS:
+            known.add(k)
+        odd = sorted(k for k in self.data if k not in known)
+        return f"; unrecognised key(s) here: {', '.join(odd)}" if odd else ""
+
     def error(self, subkey: str | None, message: str) -> ScenarioError:
         where = self.key if subkey is None else (f"{self.key}.{subkey}" if self.key else subkey)
         return ScenarioError(f"{self.source}: key '{where}': {message}")
@@ -55,7 +63,9 @@ class _Table:
         self.used.add(name)
         if name not in self.data:
             if default is _REQUIRED:
-                raise self.error(name, f"is required ({_range_text(low, high, low_open, high_open)})")
+                raise self.error(name, "is required" + (
+                    f" ({_range_text(low, high, low_open, high_open)})" if max(abs(low), abs(high)) < 1e29 else "")
+                    + self._unknown_hint())
             return default
         v = self.data[name]
         if isinstance(v, bool) or not isinstance(v, (int, float)):
@@ -127,6 +137,22 @@ class _Table:
         if unknown:
             known = allowed_hint or ", ".join(sorted(self.used))
             raise self.error(unknown[0], f"unknown key; allowed keys here: {known}")
+
+
+_KNOWN_KEYS = {
+    "values_nm", "start_nm", "stop_nm", "step_nm", "scattering_angles_deg", "relative_tolerance", "name",
+    "material", "size", "density", "n", "k", "table", "distribution", "radius_um", "median_radius_um", "sigma_g",
+    "min_radius_um", "max_radius_um", "slope", "profile", "surface_density_cm3", "scale_height_km",
+    "reference_altitude_km", "exponent", "sunlit_width_km", "dark_width_km", "offset_km", "floor_fraction",
+    "file", "scale", "radius_km", "distance_au", "spectrum", "altitude_km", "latitude_deg", "local_time_h",
+    "solar_zenith_deg", "side", "tangent_altitudes_km", "azimuth_deg", "directions", "top_altitude_km",
+    "extinction", "zodiacal_light", "zodiacal_scale", "dark_surface_radiance_factor", "aperture_area_cm2",
+    "field_of_view_deg", "solid_angle_sr", "integration_time_s", "frames", "bin_width_nm", "resolution_fwhm_nm",
+    "wavelength_min_nm", "wavelength_max_nm", "throughput", "read_noise_e", "dark_current_e_s",
+    "stray_light_fraction", "stray_light_reference_radiance_w_m2_sr_nm", "field_of_view_rings", "blue_band_nm",
+    "red_band_nm", "fit_bands_nm", "mask_nm", "free_colour_slope", "confidence", "method", "detection_sigma",
+    "chunk_size", "start", "stop", "num", "step", "spacing",
+}
 
 
 class _Required:
@@ -635,11 +661,12 @@ def _instrument(t: _Table):
     kw["read_noise_e"] = t.number("read_noise_e", 0.0, low=0.0, high=1e6)
     kw["dark_current_e_s"] = t.number("dark_current_e_s", 0.0, low=0.0, high=1e9)
     kw["stray_light_fraction"] = t.number("stray_light_fraction", 0.0, low=0.0, high=1.0)
-    kw["stray_light_reference_radiance"] = t.number("stray_light_reference_radiance", 0.0, low=0.0, high=1e3)
+    kw["stray_light_reference_radiance"] = t.number("stray_light_reference_radiance_w_m2_sr_nm", 0.0,
+                                                     low=0.0, high=1e3)
     fov_nodes = t.number("field_of_view_rings", 0, low=0, high=64, integer=True)
     t.finish("aperture_area_cm2, field_of_view_deg | solid_angle_sr, integration_time_s, frames, "
              "bin_width_nm, resolution_fwhm_nm, wavelength_min_nm, wavelength_max_nm, throughput, "
-             "read_noise_e, dark_current_e_s, stray_light_fraction, stray_light_reference_radiance, "
+             "read_noise_e, dark_current_e_s, stray_light_fraction, stray_light_reference_radiance_w_m2_sr_nm, "
              "field_of_view_rings")
     try:
         instrument = inst_mod.Instrument(**kw)
