@@ -320,7 +320,7 @@ def load_scenario(path: str | Path) -> Scenario:
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ScenarioError(f"{path}: not valid TOML: {exc}") from None
-    return scenario_from_dict(raw, source=str(path), base_dir=path.parent.resolve(), text=text)
+    return scenario_from_dict(raw, source=str(path.resolve()), base_dir=path.parent.resolve(), text=text)
 
 
 def scenario_from_dict(raw: dict, source: str = "<scenario>", base_dir: Path | None = None,

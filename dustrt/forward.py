@@ -194,6 +194,12 @@ def background_radiance(scenario, geometry: LimbGeometry, columns, solar_irradia
         zod = zodi.zodiacal_radiance(looks, wl, tw, tf, heliocentric_distance_au=scenario.sun_distance_au,
                                      scale=bg.zodiacal_scale).reshape(n, wl.size)
     hits = np.asarray(columns.hits_surface, dtype=bool)
+    if bg.zodiacal_light and bg.zodiacal_scale > 0:
+        elong = zodi.ecliptic_coordinates_deg(looks)[2]
+        close = (np.atleast_1d(elong) < zodi.MIN_ELONGATION_DEG) & ~hits
+        if close.any():
+            warn(f"{int(close.sum())} line(s) of sight come within {zodi.MIN_ELONGATION_DEG:g} deg of the Sun, "
+                 "where the zodiacal-light model is held at its 2-deg value (F-corona not modelled)")
     zod[hits] = 0.0
     surf = np.zeros((n, wl.size))
     if hits.any():
@@ -306,7 +312,8 @@ def limb_dataset(scenario, progress=False, result: LimbResult | None = None):
             "line_of_sight": ("line_of_sight", np.arange(g.look_direction.shape[0]), {"long_name": "line-of-sight index"}),
             "vector": ("vector", ["x", "y", "z"], {"long_name": "body-centred solar frame axis (+x to the Sun, +z ecliptic north)"}),
             "tangent_altitude_km": (L, c.tangent_altitude_km, {"units": "km", "long_name": "lowest altitude along the line of sight"}),
-            "scattering_angle_deg": (L, c.scattering_angle_deg, {"units": "degree", "long_name": "scattering angle (0 = looking at the Sun)"}),
+            "scattering_angle_deg": (L, c.scattering_angle_deg, {"units": "degree", "long_name": "scattering angle (0 = looking at the Sun); "
+                                                                                              "equal to the solar elongation of the view"}),
             "terminator_distance_km": (L, c.tangent_terminator_distance_km,
                                        {"units": "km", "long_name": "terminator distance of the tangent point (positive sunlit)"}),
             "look_direction": (L + ("vector",), g.look_direction, {"units": "1", "long_name": "unit look vector"}),

@@ -101,13 +101,13 @@ def density_limits(fits, normalisation_cm3, confidence, method):
     return {k: np.array(v) for k, v in out.items()}
 
 
-def _check_fit_quality(chi2_nu, dof, source):
-    """Warn when many spectra are fit badly: the templates do not describe the data."""
+def _check_fit_quality(chi2_nu, dof, source) -> bool:
+    """Warn (and return False) when many spectra are fit badly: the templates do not describe the data."""
     from scipy.stats import chi2 as chi2_dist
 
     ok = np.isfinite(chi2_nu) & (dof > 0)
     if not ok.any():
-        return
+        return True
     p = chi2_dist.sf(chi2_nu[ok] * dof[ok], dof[ok])
     bad = float(np.mean(p < 1e-3))
     if bad > 0.1:
@@ -116,6 +116,8 @@ def _check_fit_quality(chi2_nu, dof, source):
         warn(f"{source}: {100 * bad:.0f} % of spectra have a chi-square p-value below 1e-3 (median reduced "
              f"chi-square {np.median(chi2_nu[ok]):.3g}); the zodiacal + dust model does not describe the data, "
              "so the limits are not reliable")
+        return False
+    return True
 
 
 def _with_radius(scenario, radius_um):
@@ -162,14 +164,17 @@ def limits_file(observation_path, scenario, method=None, progress=False):
         templates = build_templates(sc, spectra)
         fits = separate(sc, spectra, templates)
         n0 = [reference_density_cm3(p.density) for p in sc.populations]
-        results.append(density_limits(fits, n0, conf, method))
-        for fit in fits:
-            with np.errstate(invalid="ignore", divide="ignore"):
-                _check_fit_quality(fit.chi2 / np.where(fit.dof > 0, fit.dof, np.nan), fit.dof, spectra.source)
+        res = density_limits(fits, n0, conf, method)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            res["reliable"] = np.array([_check_fit_quality(f.chi2 / np.where(f.dof > 0, f.dof, np.nan), f.dof,
+                                                           spectra.source) for f in fits])
+        results.append(res)
     stack = {k: np.stack([r[k] for r in results], axis=1) for k in results[0]}  # (P, S, ...)
     detect_sigma = scenario.sweep.detection_sigma if scenario.sweep is not None else 5.0
     names = [p.name for p in scenario.populations]
-    radius = np.array(radii if radii is not None else [p.size.characteristic_radius_um for p in scenario.populations][:1])
+    # (P, S): the swept radius, or each population's own characteristic radius
+    radius = np.array([[sc.populations[i].size.characteristic_radius_um for sc in variants]
+                       for i in range(len(scenario.populations))])
     PS = ("population", "grain_radius")
     PSO = PS + ("observation",)
     PSOL = PSO + ("line_of_sight",)
@@ -183,6 +188,7 @@ def limits_file(observation_path, scenario, method=None, progress=False):
             "density_uncertainty_cm3": (PS, stack["j_sigma"], {"units": "cm-3", "long_name": "1-sigma uncertainty of the joint estimate"}),
             "detection_threshold_density_cm3": (PS, detect_sigma * stack["j_sigma"], {"units": "cm-3", "long_name": f"density giving a {detect_sigma:g}-sigma expected excess"}),
             "two_sided": (PS, detected.astype(np.int8), {"units": "1", "long_name": "1 where the interval excludes zero (a detection: two-sided interval)"}),
+            "fit_reliable": (PS, stack["reliable"].astype(np.int8), {"units": "1", "long_name": "0 where more than 10 % of spectra fail a chi-square test at p = 1e-3 (the model does not describe the data)"}),
             "observation_upper_limit_cm3": (PSO, stack["o_upper"], {"units": "cm-3", "long_name": "upper limit per observation (its lines of sight combined)"}),
             "observation_lower_limit_cm3": (PSO, np.nan_to_num(stack["o_lower"]), {"units": "cm-3", "long_name": "lower limit per observation (its lines of sight combined)"}),
             "observation_significance": (PSO, stack["o_sig"], {"units": "1", "long_name": "dust excess significance per observation in sigma"}),
@@ -198,8 +204,9 @@ def limits_file(observation_path, scenario, method=None, progress=False):
         coords={
             "population": ("population", names, {"long_name": "hypothesised grain population"}),
             "grain_radius": ("grain_radius", np.arange(len(variants))),
-            "radius_um": ("grain_radius", radius, {"units": "um", "long_name": "swept grain radius (monodisperse radius or lognormal median)"
-                                                   if radii is not None else "characteristic grain radius of the first population"}),
+            "radius_um": (("population", "grain_radius"), radius,
+                          {"units": "um", "long_name": "grain radius: monodisperse radius, lognormal median, or a "
+                                                       "power law's lower bound"}),
             "observation": ("observation", np.arange(spectra.radiance.shape[0])),
             "line_of_sight": ("line_of_sight", np.arange(spectra.radiance.shape[1])),
         },
@@ -209,7 +216,7 @@ def limits_file(observation_path, scenario, method=None, progress=False):
                "scenario": scenario.text, "ignored_nan_bins": spectra.n_nan,
                "ignored_masked_bins": spectra.n_file_masked,
                "joint_combination": "all spectra of the file (every observation and line of sight); for simulated "
-                                    "noise realisations of one scene this equals one exposure as long as all of them",
+                                    "noise realisations of one scene this is one exposure as long as all of them together",
                "note": "model predictions for science planning; not a safety specification"},
     )
     return ds

@@ -72,10 +72,10 @@ def limits_figure(ds):
     """Upper limit vs grain radius (log-log) with the detection threshold; detections as intervals."""
     plt = _plt()
     fig, ax = plt.subplots(figsize=(6.5, 4.5))
-    r = ds["radius_um"].values
     for i, p in enumerate(ds["population"].values):
         color = f"C{i}"
         sel = ds.sel(population=p)
+        r = sel["radius_um"].values
         up = sel["density_upper_limit_cm3"].values
         lo = sel["density_lower_limit_cm3"].values
         two = sel["two_sided"].values.astype(bool)
@@ -84,14 +84,19 @@ def limits_figure(ds):
                     label=f"{p}: upper limit ({ds.attrs['confidence']:g} CL)")
         ax.plot(r, sel["detection_threshold_density_cm3"], ls="--", marker=".", color=color,
                 label=f"{p}: {ds.attrs['detection_sigma']:g}σ detection threshold")
+        if "fit_reliable" in sel and not np.all(sel["fit_reliable"].values):
+            bad = ~sel["fit_reliable"].values.astype(bool)
+            ax.plot(r[bad], up[bad], ls="none", marker="x", ms=9, color="red",
+                    label=f"{p}: model does not fit the data (unreliable)")
         if two.any():
             mid = np.sqrt(lo[two] * up[two])
             ax.errorbar(r[two], mid, yerr=[mid - lo[two], up[two] - mid], fmt="o", ms=4, capsize=3,
                         color=color, label=f"{p}: detection, {ds.attrs['confidence']:g} CL interval")
     ax.set_xscale("log")
     ax.set_yscale("log")
-    if r.size == 1:
-        ax.set_xlim(r[0] / 2, r[0] * 2)
+    r_all = ds["radius_um"].values
+    if np.unique(r_all).size == 1:
+        ax.set_xlim(r_all.min() / 2, r_all.max() * 2)
     ax.set_xlabel("grain radius [µm]")
     ax.set_ylabel("density normalisation [cm⁻³]")
     ax.set_title(f"density limits ({ds.attrs['method']})", fontsize=10)
@@ -120,6 +125,22 @@ def separation_figure(ds, population=0, observation=0):
     return fig
 
 
+def _is_geometric(values) -> bool:
+    values = np.asarray(values, dtype=float)
+    return values.size > 1 and bool(np.all(values > 0)) and values.max() / values.min() >= 10
+
+
+def _cell_edges(values, log: bool):
+    """Cell edges around grid values: midpoints (in log space for log axes), mirrored at the ends."""
+    v = np.log(values) if log else np.asarray(values, dtype=float)
+    if v.size == 1:
+        e = np.array([v[0] - 0.5, v[0] + 0.5])
+    else:
+        mid = 0.5 * (v[1:] + v[:-1])
+        e = np.concatenate([[v[0] - (mid[0] - v[0])], mid, [v[-1] + (v[-1] - mid[-1])]])
+    return np.exp(e) if log else e
+
+
 def sweep_figure(ds):
     """Minimum detectable density vs grain radius (log-log), or a 2-D map for two swept keys."""
     plt = _plt()
@@ -129,10 +150,13 @@ def sweep_figure(ds):
         fig, axes = plt.subplots(1, ds.sizes["population"], figsize=(6 * ds.sizes["population"], 4.5), squeeze=False)
         for ax, p in zip(axes[0], ds["population"].values):
             z = var.sel(population=p).transpose(dims[1], dims[0])
-            mesh = ax.pcolormesh(ds[dims[0]], ds[dims[1]], np.log10(z), shading="auto")
-            for values, setter in ((ds[dims[0]].values, ax.set_xscale), (ds[dims[1]].values, ax.set_yscale)):
-                if np.all(values > 0) and values.max() / values.min() >= 10:
-                    setter("log")  # geometric grids read better on a log axis
+            xv, yv = ds[dims[0]].values, ds[dims[1]].values
+            xlog, ylog = _is_geometric(xv), _is_geometric(yv)
+            mesh = ax.pcolormesh(_cell_edges(xv, xlog), _cell_edges(yv, ylog), np.log10(z.values), shading="flat")
+            if xlog:
+                ax.set_xscale("log")  # geometric grids read better on a log axis
+            if ylog:
+                ax.set_yscale("log")
             fig.colorbar(mesh, ax=ax, label="log10 minimum detectable density [cm⁻³]")
             ax.set_xlabel(f"{ds[dims[0]].attrs.get('sweep_key', dims[0])} [{ds[dims[0]].attrs.get('units', '')}]")
             ax.set_ylabel(f"{ds[dims[1]].attrs.get('sweep_key', dims[1])} [{ds[dims[1]].attrs.get('units', '')}]")
