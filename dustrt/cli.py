@@ -14,16 +14,10 @@ from pathlib import Path
 DEMO = "demo"
 
 
-def _demo_path() -> Path:
-    from importlib import resources
-
-    return Path(str(resources.files("dustrt") / "data" / "demo_scenario.toml"))
-
-
 def _load(path):
     from dustrt.config import load_scenario
 
-    return load_scenario(_demo_path() if path in (None, DEMO) else path)
+    return load_scenario(DEMO if path is None else path)
 
 
 def _say(args, message: str) -> None:

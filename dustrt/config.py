@@ -307,9 +307,16 @@ TOP_LEVEL = ("wavelengths", "optics", "population", "body", "sun", "observer", "
              "integration", "background", "instrument", "separation", "limits", "sweep")
 
 
+def demo_scenario_path() -> Path:
+    """Path of the packaged demo scenario (an invented orbiter, demo values)."""
+    from importlib import resources
+
+    return Path(str(resources.files("dustrt") / "data" / "demo_scenario.toml"))
+
+
 def load_scenario(path: str | Path) -> Scenario:
-    """Read and validate a scenario TOML file."""
-    path = Path(path)
+    """Read and validate a scenario TOML file (``"demo"``: the packaged demo scenario)."""
+    path = demo_scenario_path() if str(path) == "demo" else Path(path)
     if not path.is_file():
         raise ScenarioError(f"{path}: scenario file not found")
     try:
