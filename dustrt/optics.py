@@ -296,8 +296,8 @@ def optics_dataset(populations, wavelength_nm, scattering_angle_deg,
             "size_quadrature_nodes": ("population", np.array([r.n_size_nodes for r in results]),
                                       {"units": "1", "long_name": "number of radius nodes of the size quadrature"}),
             "size_quadrature_error": ("population", np.array([r.converged_relative_change for r in results]),
-                                      {"units": "1", "long_name": "estimated relative error of the size quadrature "
-                                                                  "(C_sca, C_ext, worst wavelength)"}),
+                                      {"units": "1", "long_name": "conservative bound on the relative error of the size quadrature "
+                                                                  "(sum of coarse-panel differences; C_sca, C_ext, worst wavelength)"}),
         },
         coords={
             "population": ("population", names, {"long_name": "grain population"}),
