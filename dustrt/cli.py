@@ -217,11 +217,31 @@ def _refuse_overwriting_inputs(args) -> None:
         raise ValueError(f"--plot {args.plot}: is the same file as the output")
 
 
+def _plain_warnings(command: str):
+    """Show dustrt's own warnings as one plain line (no source excerpt); returns the previous formatter."""
+    import warnings
+
+    from dustrt import DustrtWarning
+
+    default = warnings.formatwarning
+
+    def fmt(message, category, filename, lineno, line=None):
+        if issubclass(category, DustrtWarning):
+            return f"dustrt {command}: warning: {message}\n"
+        return default(message, category, filename, lineno, line)
+
+    warnings.formatwarning = fmt
+    return default
+
+
 def main(argv=None) -> int:
     from dustrt.chunks import ChunkError  # light: imports no dask
 
     parser = build_parser()
     args = parser.parse_args(argv)
+    import warnings
+
+    previous_format = _plain_warnings(args.command)
     try:
         _refuse_overwriting_inputs(args)
         return args.func(args)
@@ -243,6 +263,8 @@ def main(argv=None) -> int:
     except KeyboardInterrupt:
         print("dustrt: interrupted", file=sys.stderr)
         return 130
+    finally:
+        warnings.formatwarning = previous_format
 
 
 if __name__ == "__main__":  # pragma: no cover
