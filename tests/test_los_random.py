@@ -52,3 +52,24 @@ def test_random_geometries_against_quad():
             assert abs(c.column_cm2[p, 0] / total - 1) < 1e-5
             assert abs(c.sunlit_column_cm2[p, 0] - lit) < 1e-5 * max(lit, 1e-6 * total)
         done += 1
+
+
+def test_random_views_across_the_shadow_boundary():
+    # observers near the terminators looking along the Sun line: many rays cross the shadow
+    # cylinder, so the sunlit column is a part of the total
+    rng = np.random.default_rng(11)
+    partial = 0
+    for _ in range(20):
+        h_o = rng.uniform(20, 120)
+        t = rng.choice([rng.uniform(5.0, 6.9), rng.uniform(17.1, 19.0)])
+        obs = geo.observer_position_km(R, h_o, rng.uniform(-30, 30), t)
+        look = geo.limb_look_directions(obs, R, [rng.uniform(0, h_o - 5)], rng.choice([0.0, 180.0]) + rng.normal(0, 20))
+        s0, s1, _ = geo.ray_segment_km(obs, look, R, TOP)
+        c = integrate_columns(obs, look, R, TOP, PROFILES, 1e-6, extinction=False)
+        for p, prof in enumerate(PROFILES):
+            total = _reference(obs, look[0], prof, float(s0[0]), float(s1[0]), False)
+            lit = _reference(obs, look[0], prof, float(s0[0]), float(s1[0]), True)
+            assert abs(c.column_cm2[p, 0] / total - 1) < 1e-5
+            assert abs(c.sunlit_column_cm2[p, 0] - lit) < 1e-5 * max(lit, 1e-6 * total)
+            partial += int(0.001 * total < lit < 0.999 * total)
+    assert partial > 0  # the draw (fixed seed) includes partly shadowed rays (4 of 60 here)
