@@ -34,18 +34,6 @@ METHOD_LABELS = {
 }
 
 
-def joint_estimate(x, sigma):
-    """Inverse-variance combination of independent Gaussian estimates (NaN entries ignored)."""
-    x = np.asarray(x, dtype=float)
-    s = np.asarray(sigma, dtype=float)
-    ok = np.isfinite(x) & np.isfinite(s) & (s > 0)
-    w = np.where(ok, 1.0 / np.where(ok, s, 1.0) ** 2, 0.0)
-    wsum = w.sum()
-    if wsum == 0:
-        return np.nan, np.nan
-    return float((w * np.where(ok, x, 0.0)).sum() / wsum), float(wsum ** -0.5)
-
-
 def interval(x, sigma, confidence, method):
     """(lower, upper) on μ >= 0; the Bayesian option gives lower = 0."""
     if method not in METHOD_LABELS:
@@ -63,7 +51,10 @@ def interval(x, sigma, confidence, method):
 
 
 def joint_over_lines_of_sight(x, sigma):
-    """Inverse-variance combination over the last axis (lines of sight), NaN-aware; (…,) arrays."""
+    """Inverse-variance combination over the last axis, NaN-aware: (x, σ) arrays of shape (…,).
+
+    Entries with NaN or non-positive σ are ignored; all-ignored rows give NaN.
+    """
     x = np.asarray(x, dtype=float)
     s = np.asarray(sigma, dtype=float)
     ok = np.isfinite(x) & np.isfinite(s) & (s > 0)
@@ -89,7 +80,7 @@ def density_limits(fits, normalisation_cm3, confidence, method):
         lo, hi = interval(x, s, confidence, method)
         ox, os_ = joint_over_lines_of_sight(x, s)
         olo, ohi = interval(ox, os_, confidence, method)
-        jx, js = joint_estimate(x, s)
+        jx, js = (float(v) for v in joint_over_lines_of_sight(np.ravel(x), np.ravel(s)))
         jlo, jhi = interval(np.array([jx]), np.array([js]), confidence, method)
         with np.errstate(invalid="ignore", divide="ignore"):
             chi2 = fit.chi2 / np.where(fit.dof > 0, fit.dof, np.nan)

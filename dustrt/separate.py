@@ -248,12 +248,14 @@ def design_matrix(zodiacal, dust, wavelength_nm, free_colour_slope: bool):
     return np.stack(parts, axis=-2)
 
 
-def fit_spectra(data, sigma, templates, use_mask) -> tuple:
-    """Weighted fits of many spectra with scaled templates (returns lsq results, unconstrained and a_D >= 0).
+def fit_spectra(data, sigma, templates, use_mask, nonnegative: bool = True) -> tuple:
+    """Weighted fits of many spectra with scaled templates.
 
+    Returns (amplitudes, covariance, amplitudes with a_D >= 0 or None, lsq result).
     Templates differ by many orders of magnitude (zodiacal radiance vs dust per unit
     density), so each is scaled to unit maximum before solving and the amplitudes
-    and covariances are scaled back.
+    and covariances are scaled back.  ``nonnegative=False`` skips the constrained
+    refit where only the covariance is wanted (sweeps).
     """
     from dustrt.lsq import nonnegative_least_squares, weighted_least_squares
 
@@ -261,10 +263,11 @@ def fit_spectra(data, sigma, templates, use_mask) -> tuple:
     scale = np.where(scale > 0, scale, 1.0)
     t = templates / scale[..., None]
     res = weighted_least_squares(data, sigma, t, mask=use_mask)
-    nn = nonnegative_least_squares(data, sigma, t, templates.shape[-2] - 1, mask=use_mask)
     a = res.amplitudes / scale
     cov = res.covariance / (scale[..., :, None] * scale[..., None, :])
-    a_nn = nn.amplitudes / scale
+    a_nn = None
+    if nonnegative:
+        a_nn = nonnegative_least_squares(data, sigma, t, templates.shape[-2] - 1, mask=use_mask).amplitudes / scale
     return a, cov, a_nn, res
 
 

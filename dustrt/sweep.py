@@ -78,7 +78,8 @@ def detectability(scenario, detection_sigma: float):
         # the separation: views that end on the surface (no zodiacal light there, surface not
         # modelled) or whose dust and zodiacal templates are degenerate come back NaN and are
         # left out, exactly as `dustrt separate` and `dustrt limit` leave them out.
-        cov = fit_spectra(np.zeros(dust.shape), np.where(use, sigma, 1.0), x, use & ~hits[:, None])[1]
+        cov = fit_spectra(np.zeros(dust.shape), np.where(use, sigma, 1.0), x, use & ~hits[:, None],
+                          nonnegative=False)[1]
         var_amp = cov[:, -1, -1]
         ok = np.isfinite(var_amp) & (var_amp > 0) & ~hits
         inv = np.where(ok, 1.0 / np.where(ok, var_amp, 1.0), 0.0).sum()
