@@ -105,8 +105,11 @@ def save_figure(fig, path: str | Path) -> Path:
     return commit(render_figure(fig, path), path)
 
 
-def read_csv_table(path: str | Path, columns: tuple[str, ...]) -> dict[str, np.ndarray]:
-    """Read named numeric columns from a CSV with a header row (``#`` lines are comments)."""
+def read_csv_table(path: str | Path, columns: tuple[str, ...] | None = None) -> dict[str, np.ndarray]:
+    """Read numeric columns (all, or the named ones) from a CSV with a header row.
+
+    ``#`` lines are comments.  Errors name the file and the column.
+    """
     import csv
 
     path = Path(path)
@@ -116,6 +119,7 @@ def read_csv_table(path: str | Path, columns: tuple[str, ...]) -> dict[str, np.n
         lines = [ln for ln in fh if ln.strip() and not ln.lstrip().startswith("#")]
     reader = csv.reader(lines)
     header = [h.strip() for h in next(reader, [])]
+    columns = tuple(header) if columns is None else tuple(columns)
     missing = [c for c in columns if c not in header]
     if missing:
         raise ValueError(f"{path}: missing column {missing[0]!r} (need {', '.join(columns)})")

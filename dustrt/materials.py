@@ -33,13 +33,14 @@ References
 
 from __future__ import annotations
 
-import csv
 from dataclasses import dataclass, field
 from functools import lru_cache
 from importlib import resources
 from pathlib import Path
 
 import numpy as np
+
+from dustrt.io import read_csv_table
 
 _GLASS_FILE = "silicate_glass_nk_dorschner1995.csv"
 
@@ -120,48 +121,18 @@ def constant_material(n: float, k: float = 0.0) -> Material:
 def read_material_csv(path: str | Path, name: str | None = None) -> Material:
     """Read a table with columns ``wavelength_nm, n, k`` (``#`` lines are comments)."""
     path = Path(path)
-    if not path.is_file():
-        raise ValueError(f"material table {path}: file not found")
-    rows = _read_csv_columns(path)
-    for col in ("wavelength_nm", "n", "k"):
-        if col not in rows:
-            raise ValueError(
-                f"material table {path}: missing column {col!r} (need wavelength_nm, n, k)"
-            )
     try:
-        wl, n, k = (np.array(rows[c], dtype=float) for c in ("wavelength_nm", "n", "k"))
+        t = read_csv_table(path, ("wavelength_nm", "n", "k"))
+        return Material(name=name or path.stem, wavelength_nm=tuple(t["wavelength_nm"]), n=tuple(t["n"]),
+                        k=tuple(t["k"]), source=str(path))
     except ValueError as exc:
-        raise ValueError(f"material table {path}: non-numeric value ({exc})") from None
-    try:
-        return Material(
-            name=name or path.stem,
-            wavelength_nm=tuple(wl),
-            n=tuple(n),
-            k=tuple(k),
-            source=str(path),
-        )
-    except ValueError as exc:
-        raise ValueError(f"material table {path}: {exc}") from None
-
-
-def _read_csv_columns(path: Path) -> dict[str, list[str]]:
-    with open(path, newline="") as fh:
-        lines = [ln for ln in fh if ln.strip() and not ln.lstrip().startswith("#")]
-    reader = csv.reader(lines)
-    header = [h.strip() for h in next(reader, [])]
-    cols: dict[str, list[str]] = {h: [] for h in header}
-    for row in reader:
-        if len(row) != len(header):
-            raise ValueError(f"table {path}: a row has {len(row)} fields, header has {len(header)}")
-        for h, v in zip(header, row):
-            cols[h].append(v.strip())
-    return cols
+        raise ValueError(f"material table {exc}") from None
 
 
 @lru_cache(maxsize=1)
-def _glass_table() -> dict[str, list[str]]:
+def _glass_table() -> dict[str, np.ndarray]:
     with resources.as_file(resources.files("dustrt") / "data" / _GLASS_FILE) as p:
-        return _read_csv_columns(Path(p))
+        return read_csv_table(Path(p))
 
 
 def builtin_material_names() -> list[str]:
@@ -182,8 +153,8 @@ def builtin_material(name: str) -> Material:
         )
     return Material(
         name=name,
-        wavelength_nm=tuple(float(v) for v in cols["wavelength_nm"]),
-        n=tuple(float(v) for v in cols[f"{prefix}_n"]),
-        k=tuple(float(v) for v in cols[f"{prefix}_k"]),
+        wavelength_nm=tuple(cols["wavelength_nm"]),
+        n=tuple(cols[f"{prefix}_n"]),
+        k=tuple(cols[f"{prefix}_k"]),
         source=f"Dorschner et al. (1995), A&A 300, 503: {prefix}",
     )
