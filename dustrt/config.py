@@ -13,6 +13,7 @@ from __future__ import annotations
 import copy
 import math
 import tomllib
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -23,7 +24,55 @@ from dustrt.constants import MOON_RADIUS_KM
 
 
 class ScenarioError(ValueError):
-    """A scenario file is invalid; the message names file, key and what is allowed."""
+    """A scenario file is invalid; the message names file, key and what is allowed.
+
+    ``key`` is the dotted key of a single problem; ``problems`` lists every
+    problem's message when a whole scenario was validated at once.
+    """
+
+    def __init__(self, message: str, key: str | None = None, problems: list[str] | None = None):
+        super().__init__(message)
+        self.key = key
+        self.problems = list(problems) if problems else [message]
+
+
+class _Reported(Exception):
+    """A table had problems that are already recorded; stop building it."""
+
+
+class _Problems:
+    """Every problem found while validating one scenario (one per key)."""
+
+    def __init__(self, source: str):
+        self.source = source
+        self.messages: list[str] = []
+        self.keys: set[str] = set()
+
+    def add(self, exc: ScenarioError) -> None:
+        # a later complaint about a key already reported is a consequence of the first one
+        if exc.key is not None:
+            if exc.key in self.keys:
+                return
+            self.keys.add(exc.key)
+        self.messages.append(str(exc))
+
+    @contextmanager
+    def guard(self):
+        """Record a problem raised inside and carry on with the next part of the scenario."""
+        try:
+            yield
+        except _Reported:
+            pass
+        except ScenarioError as exc:
+            self.add(exc)
+
+    def raise_if_any(self) -> None:
+        if not self.messages:
+            return
+        if len(self.messages) == 1:
+            raise ScenarioError(self.messages[0], problems=self.messages)
+        lines = "\n".join(f"  {m}" for m in self.messages)
+        raise ScenarioError(f"{len(self.messages)} problems in {self.source}:\n{lines}", problems=self.messages)
 
 
 # ---------------------------------------------------------------- validation helpers
@@ -32,12 +81,28 @@ class ScenarioError(ValueError):
 class _Table:
     """A TOML table being read: tracks used keys so unknown ones can be rejected."""
 
-    def __init__(self, data: dict, key: str, source: str, base_dir: Path):
+    def __init__(self, data: dict, key: str, source: str, base_dir: Path, problems: _Problems | None = None):
         self.data = data
         self.key = key
         self.source = source
         self.base_dir = base_dir
         self.used: set[str] = set()
+        self.problems = problems if problems is not None else _Problems(source)
+        self.bad = False  # a value here was rejected (and recorded); the table is not built
+
+    def child(self, data: dict, key: str) -> "_Table":
+        return _Table(data, key, self.source, self.base_dir, self.problems)
+
+    def _collect(self, read, fallback):
+        """Read one value; a bad one is recorded and replaced by ``fallback`` so reading goes on."""
+        try:
+            return read()
+        except _Reported:
+            raise
+        except ScenarioError as exc:
+            self.problems.add(exc)
+            self.bad = True
+            return fallback
 
     def _unknown_hint(self) -> str:
         """Mention keys not (yet) recognised here: a missing key is often a misspelt one."""
@@ -49,7 +114,12 @@ class _Table:
 
     def error(self, subkey: str | None, message: str) -> ScenarioError:
         where = self.key if subkey is None else (f"{self.key}.{subkey}" if self.key else subkey)
-        return ScenarioError(f"{self.source}: key '{where}': {message}")
+        return ScenarioError(f"{self.source}: key '{where}': {message}", key=where)
+
+    def report(self, subkey: str | None, message: str) -> None:
+        """Record a problem and keep reading the table (it will not be built)."""
+        self.problems.add(self.error(subkey, message))
+        self.bad = True
 
     def has(self, name: str) -> bool:
         return name in self.data
@@ -58,13 +128,17 @@ class _Table:
         self.used.add(name)
         return self.data.get(name, default)
 
-    def number(self, name, default=None, *, low=-math.inf, high=math.inf, low_open=False,
-               high_open=False, integer=False) -> float | None:
+    def number(self, name, default=None, **limits) -> float | None:
+        fallback = math.nan if default is _REQUIRED else default
+        return self._collect(lambda: self._number(name, default, **limits), fallback)
+
+    def _number(self, name, default=None, *, low=-math.inf, high=math.inf, low_open=False,
+                high_open=False, integer=False) -> float | None:
         self.used.add(name)
         if name not in self.data:
             if default is _REQUIRED:
                 raise self.error(name, "is required" + (
-                    f" ({_range_text(low, high, low_open, high_open)})" if max(abs(low), abs(high)) < 1e29 else "")
+                    f", in {_range_text(low, high, low_open, high_open)}" if max(abs(low), abs(high)) < 1e29 else "")
                     + self._unknown_hint())
             return default
         v = self.data[name]
@@ -80,6 +154,9 @@ class _Table:
         return v
 
     def boolean(self, name, default) -> bool:
+        return self._collect(lambda: self._boolean(name, default), default)
+
+    def _boolean(self, name, default) -> bool:
         self.used.add(name)
         v = self.data.get(name, default)
         if not isinstance(v, bool):
@@ -99,7 +176,10 @@ class _Table:
             raise self.error(name, f"must be one of {', '.join(repr(c) for c in choices)}, got {v!r}")
         return v
 
-    def number_list(self, name, *, low=-math.inf, high=math.inf, low_open=False, min_len=1):
+    def number_list(self, name, **limits) -> np.ndarray:
+        return self._collect(lambda: self._number_list(name, **limits), np.full(1, np.nan))
+
+    def _number_list(self, name, *, low=-math.inf, high=math.inf, low_open=False, min_len=1):
         self.used.add(name)
         v = self.data[name]
         if not isinstance(v, list) or len(v) < min_len or any(
@@ -121,7 +201,7 @@ class _Table:
         v = self.data[name]
         if not isinstance(v, dict):
             raise self.error(name, f"must be a table, got {v!r}")
-        return _Table(v, f"{self.key}.{name}" if self.key else name, self.source, self.base_dir)
+        return self.child(v, f"{self.key}.{name}" if self.key else name)
 
     def path(self, name) -> Path:
         v = self.string(name, _REQUIRED)
@@ -133,10 +213,13 @@ class _Table:
         return p
 
     def finish(self, allowed_hint: str | None = None) -> None:
-        unknown = sorted(set(self.data) - self.used)
-        if unknown:
-            known = allowed_hint or ", ".join(sorted(self.used))
-            raise self.error(unknown[0], f"unknown key; allowed keys here: {known}")
+        """Record unknown keys; stop building this table if any of its values was rejected."""
+        known = allowed_hint or ", ".join(sorted(self.used))
+        for name in sorted(set(self.data) - self.used):
+            self.problems.add(self.error(name, f"unknown key; allowed keys here: {known}"))
+            self.bad = True
+        if self.bad:
+            raise _Reported
 
 
 _KNOWN_KEYS = {
@@ -175,7 +258,7 @@ def _grid(table: _Table, name: str, *, low, high, low_open=False, integer_num=Tr
     if isinstance(v, list):
         return table.number_list(name, low=low, high=high, low_open=low_open)
     if isinstance(v, dict):
-        sub = _Table(v, f"{table.key}.{name}" if table.key else name, table.source, table.base_dir)
+        sub = table.child(v, f"{table.key}.{name}" if table.key else name)
         start = sub.number("start", _REQUIRED, low=low, high=high, low_open=low_open)
         stop = sub.number("stop", _REQUIRED, low=low, high=high, low_open=low_open)
         spacing = sub.string("spacing", "linear", choices=("linear", "log"))
@@ -332,11 +415,126 @@ def load_scenario(path: str | Path) -> Scenario:
 
 def scenario_from_dict(raw: dict, source: str = "<scenario>", base_dir: Path | None = None,
                        text: str = "") -> Scenario:
-    """Validate an already-parsed scenario dictionary."""
+    """Validate an already-parsed scenario dictionary.
+
+    Every table is checked even after a problem is found, so one
+    :class:`ScenarioError` lists all of them (``.problems``).
+    """
     base_dir = Path(base_dir or Path.cwd())
     top = _Table(raw, "", source, base_dir)
+    problems = top.problems
+    kwargs: dict[str, Any] = {}
 
-    wl_t = top.subtable("wavelengths", required=True)
+    with problems.guard():
+        kwargs["wavelength_nm"] = _wavelengths(top.subtable("wavelengths", required=True))
+
+    kwargs["scattering_angle_deg"] = np.arange(0.0, 181.0, 1.0)
+    kwargs["optics_relative_tolerance"] = 1e-4
+    with problems.guard():
+        opt_t = top.subtable("optics")
+        if opt_t is not None:
+            if opt_t.has("scattering_angles_deg"):
+                angles = opt_t.number_list("scattering_angles_deg", low=0.0, high=180.0)
+                if np.any(np.diff(angles) <= 0):
+                    raise opt_t.error("scattering_angles_deg", "must be strictly increasing")
+                kwargs["scattering_angle_deg"] = angles
+            kwargs["optics_relative_tolerance"] = opt_t.number("relative_tolerance", 1e-4, low=1e-10, high=0.1)
+            opt_t.finish("scattering_angles_deg, relative_tolerance")
+
+    populations = []
+    with problems.guard():
+        pops_raw = top.raw("population")
+        if not isinstance(pops_raw, list) or not pops_raw or not all(isinstance(p, dict) for p in pops_raw):
+            raise top.error("population", "at least one [[population]] table is required")
+        for i, p in enumerate(pops_raw):
+            with problems.guard():
+                populations.append(_population(top.child(p, f"population[{i}]")))
+        names = [p.name for p in populations]
+        if len(set(names)) != len(names):
+            raise top.error("population", f"population names must be unique, got {names}")
+
+    with problems.guard():
+        body = top.subtable("body")
+        if body is not None:
+            kwargs["body_radius_km"] = body.number("radius_km", MOON_RADIUS_KM, low=1.0, high=1e5)
+            body.finish("radius_km")
+
+    with problems.guard():
+        sun = top.subtable("sun")
+        if sun is not None:
+            kwargs["sun_distance_au"] = sun.number("distance_au", 1.0, low=0.05, high=50.0)
+            spec = sun.string("spectrum", "builtin")
+            kwargs["solar_spectrum"] = spec if spec == "builtin" else sun.path("spectrum")
+            sun.finish("distance_au, spectrum")
+
+    with problems.guard():
+        obs = top.subtable("observer")
+        if obs is not None:
+            kwargs["observer"] = _observer(obs)
+    with problems.guard():
+        view = top.subtable("view")
+        if view is not None:
+            kwargs["view"] = _view(view, kwargs.get("observer"))
+
+    with problems.guard():
+        integ = top.subtable("integration")
+        if integ is not None:
+            kwargs["integration"] = Integration(
+                top_altitude_km=integ.number("top_altitude_km", 300.0, low=0.0, high=1e5, low_open=True),
+                relative_tolerance=integ.number("relative_tolerance", 1e-4, low=1e-10, high=0.1),
+                extinction=integ.boolean("extinction", True),
+            )
+            integ.finish("top_altitude_km, relative_tolerance, extinction")
+
+    with problems.guard():
+        bg = top.subtable("background")
+        if bg is not None:
+            kwargs["background"] = Background(
+                zodiacal_light=bg.boolean("zodiacal_light", True),
+                zodiacal_scale=bg.number("zodiacal_scale", 1.0, low=0.0, high=100.0),
+                dark_surface_radiance_factor=bg.number("dark_surface_radiance_factor", 0.0, low=0.0, high=1.0),
+            )
+            bg.finish("zodiacal_light, zodiacal_scale, dark_surface_radiance_factor")
+
+    with problems.guard():
+        inst = top.subtable("instrument")
+        if inst is not None:
+            kwargs["instrument"] = _instrument(inst)
+
+    with problems.guard():
+        sep = top.subtable("separation")
+        if sep is not None:
+            kwargs["separation"] = _separation(sep)
+
+    with problems.guard():
+        lim = top.subtable("limits")
+        if lim is not None:
+            kwargs["limits"] = Limits(
+                confidence=lim.number("confidence", 0.95, low=0.5, high=0.9999),
+                method=lim.string("method", "feldman-cousins", choices=("feldman-cousins", "bayesian-flat")),
+            )
+            lim.finish("confidence, method")
+
+    with problems.guard():
+        sw = top.subtable("sweep")
+        if sw is not None:
+            kwargs["sweep"] = _sweep(sw, raw)
+
+    with problems.guard():
+        top.finish(", ".join(TOP_LEVEL))
+    problems.raise_if_any()
+
+    # checks across tables, once every table is valid on its own
+    scenario = Scenario(source=source, text=text, raw=raw, base_dir=base_dir,
+                        populations=tuple(populations), **kwargs)
+    for check in (_check_view_against_observer, _check_spectral_coverage, _check_radius_sweep):
+        with problems.guard():
+            check(scenario, top)
+    problems.raise_if_any()
+    return scenario
+
+
+def _wavelengths(wl_t: _Table) -> np.ndarray:
     if wl_t.has("values_nm"):
         wavelength = wl_t.number_list("values_nm", low=100.0, high=5000.0)
         wl_t.finish("values_nm, or start_nm, stop_nm, step_nm")
@@ -353,102 +551,18 @@ def scenario_from_dict(raw: dict, source: str = "<scenario>", base_dir: Path | N
         wavelength = start + step * np.arange(n)
     if np.any(np.diff(wavelength) <= 0):
         raise wl_t.error("values_nm", "must be strictly increasing")
+    return wavelength
 
-    opt_t = top.subtable("optics")
-    angles = np.arange(0.0, 181.0, 1.0)
-    optics_rtol = 1e-4
-    if opt_t is not None:
-        if opt_t.has("scattering_angles_deg"):
-            angles = opt_t.number_list("scattering_angles_deg", low=0.0, high=180.0)
-            if np.any(np.diff(angles) <= 0):
-                raise opt_t.error("scattering_angles_deg", "must be strictly increasing")
-        optics_rtol = opt_t.number("relative_tolerance", 1e-4, low=1e-10, high=0.1)
-        opt_t.finish("scattering_angles_deg, relative_tolerance")
 
-    pops_raw = top.raw("population")
-    if not isinstance(pops_raw, list) or not pops_raw or not all(isinstance(p, dict) for p in pops_raw):
-        raise top.error("population", "at least one [[population]] table is required")
-    populations = []
-    for i, p in enumerate(pops_raw):
-        populations.append(_population(_Table(p, f"population[{i}]", source, base_dir)))
-    names = [p.name for p in populations]
-    if len(set(names)) != len(names):
-        raise top.error("population", f"population names must be unique, got {names}")
-
-    kwargs: dict[str, Any] = {}
-    body = top.subtable("body")
-    if body is not None:
-        kwargs["body_radius_km"] = body.number("radius_km", MOON_RADIUS_KM, low=1.0, high=1e5)
-        body.finish("radius_km")
-
-    sun = top.subtable("sun")
-    if sun is not None:
-        kwargs["sun_distance_au"] = sun.number("distance_au", 1.0, low=0.05, high=50.0)
-        spec = sun.string("spectrum", "builtin")
-        kwargs["solar_spectrum"] = spec if spec == "builtin" else sun.path("spectrum")
-        sun.finish("distance_au, spectrum")
-
-    obs = top.subtable("observer")
-    if obs is not None:
-        kwargs["observer"] = _observer(obs)
-    view = top.subtable("view")
-    if view is not None:
-        kwargs["view"] = _view(view, kwargs.get("observer"))
-
-    integ = top.subtable("integration")
-    if integ is not None:
-        kwargs["integration"] = Integration(
-            top_altitude_km=integ.number("top_altitude_km", 300.0, low=0.0, high=1e5, low_open=True),
-            relative_tolerance=integ.number("relative_tolerance", 1e-4, low=1e-10, high=0.1),
-            extinction=integ.boolean("extinction", True),
-        )
-        integ.finish("top_altitude_km, relative_tolerance, extinction")
-
-    bg = top.subtable("background")
-    if bg is not None:
-        kwargs["background"] = Background(
-            zodiacal_light=bg.boolean("zodiacal_light", True),
-            zodiacal_scale=bg.number("zodiacal_scale", 1.0, low=0.0, high=100.0),
-            dark_surface_radiance_factor=bg.number("dark_surface_radiance_factor", 0.0, low=0.0, high=1.0),
-        )
-        bg.finish("zodiacal_light, zodiacal_scale, dark_surface_radiance_factor")
-
-    inst = top.subtable("instrument")
-    if inst is not None:
-        kwargs["instrument"] = _instrument(inst)
-
-    sep = top.subtable("separation")
-    if sep is not None:
-        kwargs["separation"] = _separation(sep)
-
-    lim = top.subtable("limits")
-    if lim is not None:
-        kwargs["limits"] = Limits(
-            confidence=lim.number("confidence", 0.95, low=0.5, high=0.9999),
-            method=lim.string("method", "feldman-cousins", choices=("feldman-cousins", "bayesian-flat")),
-        )
-        lim.finish("confidence, method")
-
-    sw = top.subtable("sweep")
-    if sw is not None:
-        kwargs["sweep"] = _sweep(sw, raw)
-
-    top.finish(", ".join(TOP_LEVEL))
-    scenario = Scenario(source=source, text=text, raw=raw, base_dir=base_dir, wavelength_nm=wavelength,
-                        scattering_angle_deg=angles, optics_relative_tolerance=optics_rtol,
-                        populations=tuple(populations), **kwargs)
-    if scenario.observer is not None and scenario.observer.altitude_km <= 0:
-        raise top.error("observer.altitude_km", "must be above the surface (> 0)")
-    _check_view_against_observer(scenario, top)
-    _check_spectral_coverage(scenario, top)
-    if scenario.sweep is not None and any(k == "radius_um" for k, _ in scenario.sweep.axes):
-        for i, p in enumerate(scenario.populations):
-            if p.size.kind == "power-law":
-                raise top.error("sweep.radius_um",
-                                f"population[{i}] ({p.name!r}) has a power-law size distribution, which has no "
-                                "single radius to sweep; sweep 'population.NAME.size.max_radius_um' (or "
-                                "min_radius_um, slope) instead")
-    return scenario
+def _check_radius_sweep(s: Scenario, top: _Table) -> None:
+    if s.sweep is None or not any(k == "radius_um" for k, _ in s.sweep.axes):
+        return
+    for i, p in enumerate(s.populations):
+        if p.size.kind == "power-law":
+            raise top.error("sweep.radius_um",
+                            f"population[{i}] ({p.name!r}) has a power-law size distribution, which has no "
+                            "single radius to sweep; sweep 'population.NAME.size.max_radius_um' (or "
+                            "min_radius_um, slope) instead")
 
 
 def _check_spectral_coverage(s: Scenario, top: _Table) -> None:
@@ -487,69 +601,81 @@ def _check_spectral_coverage(s: Scenario, top: _Table) -> None:
 
 
 def _population(t: _Table) -> Population:
-    from dustrt import materials, sizes
-
+    """One [[population]]; its material, size and density are each checked even if another is bad."""
     name = t.string("name", _REQUIRED)
     if not name or not name.replace("_", "").replace("-", "").isalnum():
         raise t.error("name", f"must be a non-empty name of letters, digits, '-' or '_', got {name!r}")
+    parts: dict[str, Any] = {}
+    with t.problems.guard():
+        parts["material"] = _material(t)
+    with t.problems.guard():
+        parts["size"] = _size(t.subtable("size", required=True))
+    parts["density"] = None
+    with t.problems.guard():
+        dt = t.subtable("density")
+        if dt is not None:
+            parts["density"] = _density(dt)
+    t.finish("name, material, size, density")
+    if len(parts) < 3:
+        raise _Reported
+    return Population(name=name, **parts)
+
+
+def _material(t: _Table):
+    from dustrt import materials
 
     mat_raw = t.raw("material")
     if mat_raw is None:
         raise t.error("material", "is required: a built-in name, {n, k}, or {table = 'file.csv'}")
     if isinstance(mat_raw, str):
         try:
-            material = materials.builtin_material(mat_raw)
+            return materials.builtin_material(mat_raw)
         except ValueError as exc:
             raise t.error("material", str(exc)) from None
-    elif isinstance(mat_raw, dict):
-        mt = t.subtable("material")
-        if mt.has("table"):
-            p = mt.path("table")
-            mt.finish("table (or n, k)")
-            try:
-                material = materials.read_material_csv(p)
-            except ValueError as exc:
-                raise mt.error("table", str(exc)) from None
-        else:
-            n = mt.number("n", _REQUIRED, low=0.0, high=10.0, low_open=True)
-            k = mt.number("k", 0.0, low=0.0, high=10.0)
-            mt.finish("n, k (or table)")
-            material = materials.constant_material(n, k)
-    else:
+    if not isinstance(mat_raw, dict):
         raise t.error("material", f"must be a built-in name or a table, got {mat_raw!r}")
+    mt = t.subtable("material")
+    if mt.has("table"):
+        p = mt.path("table")
+        mt.finish("table (or n, k)")
+        try:
+            return materials.read_material_csv(p)
+        except ValueError as exc:
+            raise mt.error("table", str(exc)) from None
+    n = mt.number("n", _REQUIRED, low=0.0, high=10.0, low_open=True)
+    k = mt.number("k", 0.0, low=0.0, high=10.0)
+    mt.finish("n, k (or table)")
+    return materials.constant_material(n, k)
 
-    st = t.subtable("size", required=True)
+
+_SIZE_KEYS = {
+    "monodisperse": ("radius_um",),
+    "lognormal": ("median_radius_um", "sigma_g", "min_radius_um", "max_radius_um"),
+    "power-law": ("min_radius_um", "max_radius_um", "slope"),
+}
+
+
+def _size(st: _Table):
+    from dustrt import sizes
+
     kind = st.string("distribution", _REQUIRED, choices=tuple(sizes.DISTRIBUTIONS))
-    try:
-        if kind == "monodisperse":
-            size = sizes.Monodisperse(st.number("radius_um", _REQUIRED, low=1e-4, high=1e3))
-            st.finish("distribution, radius_um")
-        elif kind == "lognormal":
-            size = sizes.LogNormal(
-                st.number("median_radius_um", _REQUIRED, low=1e-4, high=1e3),
+    radius = dict(low=1e-4, high=1e3)
+    if kind == "monodisperse":
+        args = (st.number("radius_um", _REQUIRED, **radius),)
+    elif kind == "lognormal":
+        args = (st.number("median_radius_um", _REQUIRED, **radius),
                 st.number("sigma_g", _REQUIRED, low=1.0, high=10.0, low_open=True),
-                st.number("min_radius_um", None, low=1e-4, high=1e3),
-                st.number("max_radius_um", None, low=1e-4, high=1e3),
-            )
-            st.finish("distribution, median_radius_um, sigma_g, min_radius_um, max_radius_um")
-        else:
-            size = sizes.PowerLaw(
-                st.number("min_radius_um", _REQUIRED, low=1e-4, high=1e3),
-                st.number("max_radius_um", _REQUIRED, low=1e-4, high=1e3),
-                st.number("slope", _REQUIRED, low=-10.0, high=10.0),
-            )
-            st.finish("distribution, min_radius_um, max_radius_um, slope")
+                st.number("min_radius_um", None, **radius),
+                st.number("max_radius_um", None, **radius))
+    else:
+        args = (st.number("min_radius_um", _REQUIRED, **radius),
+                st.number("max_radius_um", _REQUIRED, **radius),
+                st.number("slope", _REQUIRED, low=-10.0, high=10.0))
+    st.finish("distribution, " + ", ".join(_SIZE_KEYS[kind]))
+    try:
+        return sizes.DISTRIBUTIONS[kind](*args)
     except ValueError as exc:
-        if isinstance(exc, ScenarioError):
-            raise
         raise st.error(None, str(exc)) from None
-
-    density = None
-    dt = t.subtable("density")
-    if dt is not None:
-        density = _density(dt)
-    t.finish("name, material, size, density")
-    return Population(name=name, material=material, size=size, density=density)
 
 
 _PROFILE_KEYS = {
@@ -644,9 +770,9 @@ def _instrument(t: _Table):
     kw: dict[str, Any] = {}
     kw["aperture_area_cm2"] = t.number("aperture_area_cm2", _REQUIRED, low=0.0, high=1e6, low_open=True)
     if t.has("field_of_view_deg") == t.has("solid_angle_sr"):
-        raise t.error("field_of_view_deg", "give exactly one of field_of_view_deg (full cone angle) "
-                                           "and solid_angle_sr")
-    if t.has("field_of_view_deg"):
+        t.used.update(("field_of_view_deg", "solid_angle_sr"))
+        t.report("field_of_view_deg", "give exactly one of field_of_view_deg (full cone angle) and solid_angle_sr")
+    elif t.has("field_of_view_deg"):
         kw["field_of_view_deg"] = t.number("field_of_view_deg", _REQUIRED, low=0.0, high=180.0, low_open=True)
     else:
         kw["solid_angle_sr"] = t.number("solid_angle_sr", _REQUIRED, low=0.0, high=2 * math.pi, low_open=True)

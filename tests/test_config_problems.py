@@ -1,0 +1,109 @@
+"""A scenario is validated as a whole: one error lists every problem, each with file and key."""
+
+import pytest
+
+from dustrt.cli import main
+from dustrt.config import ScenarioError, load_scenario
+
+MANY_PROBLEMS = """
+[wavelengths]
+start_nm = 300.0
+stop_nm = "700"
+step_nm = -5
+
+[[population]]
+name = "a"
+material = "nonesuch"
+size = { distribution = "lognormal", median_radius_um = 0.1, sigma_g = 0.5, colour = 3 }
+density = { profile = "exponential", surface_density_cm3 = 1.0 }
+
+[[population]]
+name = "b"
+material = { n = -1.5 }
+size = { distribution = "monodisperse", radius_um = 0.1 }
+
+[observer]
+altitude_km = -3
+local_time_h = 30
+
+[instrument]
+aperture_area_cm2 = 1.0
+field_of_view_deg = 1.0
+integration_time_s = 0
+
+[limits]
+confidence = 2
+
+[frobnicate]
+x = 1
+"""
+
+EXPECTED_KEYS = [
+    "wavelengths.stop_nm", "wavelengths.step_nm", "population[0].material", "population[0].size.sigma_g",
+    "population[0].size.colour", "population[0].density.scale_height_km", "population[1].material.n",
+    "observer.altitude_km", "observer.local_time_h", "instrument.integration_time_s",
+    "instrument.bin_width_nm", "limits.confidence", "frobnicate",
+]
+
+
+def test_every_problem_is_reported_once_with_its_key(tmp_path):
+    path = tmp_path / "bad.toml"
+    path.write_text(MANY_PROBLEMS)
+    with pytest.raises(ScenarioError) as info:
+        load_scenario(path)
+    problems = info.value.problems
+    for key in EXPECTED_KEYS:
+        hits = [m for m in problems if f"key '{key}'" in m]
+        assert len(hits) == 1, (key, problems)
+    assert all(m.startswith(f"{path.resolve()}: key '") for m in problems)
+    assert str(info.value).startswith(f"{len(problems)} problems in {path.resolve()}:")
+
+
+def test_a_single_problem_reads_as_before(tmp_path):
+    path = tmp_path / "one.toml"
+    path.write_text(MANY_PROBLEMS.split("[[population]]")[0].replace('"700"', "700").replace("-5", "5")
+                    + '[[population]]\nname = "a"\nmaterial = { n = 1.5 }\n'
+                      'size = { distribution = "monodisperse", radius_um = 0.1 }\n')
+    load_scenario(path)  # valid
+    path.write_text(path.read_text().replace("radius_um = 0.1", "radius_um = -0.1"))
+    with pytest.raises(ScenarioError) as info:
+        load_scenario(path)
+    assert info.value.problems == [str(info.value)]
+    assert "key 'population[0].size.radius_um': must lie in [0.0001, 1000], got -0.1" in str(info.value)
+
+
+def test_cli_prints_every_problem_and_exits_2(tmp_path, capsys):
+    path = tmp_path / "bad.toml"
+    path.write_text(MANY_PROBLEMS)
+    out = tmp_path / "out.nc"
+    assert main(["limb", str(path), "-o", str(out)]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("dustrt limb: error: ")
+    assert "Traceback" not in err
+    for key in EXPECTED_KEYS:
+        assert f"key '{key}'" in err
+    assert not out.exists()
+
+
+def test_cross_table_checks_run_once_tables_are_valid(tmp_path):
+    """View against observer and spectral coverage need valid tables; they are reported together."""
+    path = tmp_path / "cross.toml"
+    path.write_text("""
+[wavelengths]
+values_nm = [150.0, 500.0]
+[[population]]
+name = "a"
+material = "pyroxene_glass_x0.5"
+size = { distribution = "monodisperse", radius_um = 0.1 }
+density = { profile = "exponential", surface_density_cm3 = 1.0, scale_height_km = 10.0 }
+[observer]
+altitude_km = 50.0
+local_time_h = 6.5
+[view]
+tangent_altitudes_km = [10.0, 80.0]
+""")
+    with pytest.raises(ScenarioError) as info:
+        load_scenario(path)
+    keys = " ".join(info.value.problems)
+    assert "key 'view.tangent_altitudes_km'" in keys
+    assert "key 'population[0].material'" in keys
