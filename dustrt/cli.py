@@ -106,9 +106,6 @@ def _cmd_sweep(args) -> int:
     from dustrt.sweep import run_sweep
 
     sc = _load(args.scenario)
-    io.check_output_path(args.output)
-    if args.plot:
-        io.check_output_path(args.plot, "plot")
     ds = run_sweep(sc, args.output, scheduler=args.scheduler, workers=args.workers,
                    resume=args.resume, progress=not args.quiet)
     _say(args, f"wrote {args.output}")
@@ -167,6 +164,7 @@ def build_parser() -> argparse.ArgumentParser:
         p.add_argument("-o", "--output", required=True, metavar=output, help="netCDF file to write")
         if plot:
             p.add_argument("--plot", metavar="FILE.png", help=plot)
+        p.add_argument("--overwrite", action="store_true", help="replace existing output files")
         p.add_argument("-q", "--quiet", action="store_true", help="no progress or status messages")
         p.set_defaults(func=func)
         return p
@@ -207,14 +205,21 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-def _refuse_overwriting_inputs(args) -> None:
-    out = Path(args.output).resolve()
-    for name in ("scenario", "observation"):
-        value = getattr(args, name, None)
-        if value not in (None, DEMO) and Path(value).resolve() == out:
-            raise ValueError(f"output {args.output}: is the input {name} file; choose another name")
-    if getattr(args, "plot", None) and Path(args.plot).resolve() == out:
+def _check_outputs(args) -> None:
+    """Before any work: outputs can be created, are not the inputs, and exist only with --overwrite."""
+    from dustrt import io
+
+    outputs = [("output", args.output)] + ([("--plot", args.plot)] if getattr(args, "plot", None) else [])
+    inputs = [(n, getattr(args, n, None)) for n in ("scenario", "observation")]
+    if len(outputs) == 2 and Path(args.plot).resolve() == Path(args.output).resolve():
         raise ValueError(f"--plot {args.plot}: is the same file as the output")
+    for what, name in outputs:
+        for input_name, value in inputs:
+            if value not in (None, DEMO) and Path(value).resolve() == Path(name).resolve():
+                raise ValueError(f"{what} {name}: is the input {input_name} file; choose another name")
+        io.check_output_path(name, what)
+        if Path(name).exists() and not args.overwrite:
+            raise ValueError(f"{what} {name}: already exists; choose another name or pass --overwrite")
 
 
 def _plain_warnings(command: str):
@@ -243,7 +248,7 @@ def main(argv=None) -> int:
 
     previous_format = _plain_warnings(args.command)
     try:
-        _refuse_overwriting_inputs(args)
+        _check_outputs(args)
         return args.func(args)
     except ChunkError as exc:
         # a grid point failed: bad input if its cause is a validation error

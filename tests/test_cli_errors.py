@@ -187,3 +187,19 @@ def test_radius_sweep_rejects_power_law_populations(tmp_path, capsys):
     text = p.read_text().replace("radius_um = [0.01, 0.1]", '"population.fine.size.max_radius_um" = [0.5, 1.0]')
     p.write_text(text)
     assert main(["sweep", str(p), "-o", str(tmp_path / "ok.nc"), "-q"]) == 0
+
+
+def test_existing_outputs_are_kept_unless_overwrite(tmp_path, capsys):
+    p = tmp_path / "s.toml"
+    p.write_text(textwrap.dedent(SCEN))
+    out, png = tmp_path / "o.nc", tmp_path / "o.png"
+    out.write_bytes(b"keep me")
+    assert main(["optics", str(p), "-o", str(out), "-q"]) == 2
+    assert "already exists" in capsys.readouterr().err and out.read_bytes() == b"keep me"
+    png.write_bytes(b"keep me too")
+    assert main(["optics", str(p), "-o", str(tmp_path / "new.nc"), "--plot", str(png), "-q"]) == 2
+    err = capsys.readouterr().err
+    assert "--plot" in err and "already exists" in err
+    assert not (tmp_path / "new.nc").exists() and png.read_bytes() == b"keep me too"
+    assert main(["optics", str(p), "-o", str(out), "--plot", str(png), "-q", "--overwrite"]) == 0
+    assert out.read_bytes()[:4] == b"\x89HDF" and png.read_bytes()[:4] == b"\x89PNG"

@@ -196,7 +196,7 @@ def test_limits_cli_and_coverage(tmp_path):
     # ...so test coverage at a non-zero truth with the interval (lower, upper)
     ds.close()
     fit, path, hyp_path = _separate(tmp_path, "2e-8", 400, seed=12)
-    assert main(["limit", str(path), "--scenario", str(hyp_path), "-o", str(out), "-q"]) == 0
+    assert main(["limit", str(path), "--scenario", str(hyp_path), "-o", str(out), "-q", "--overwrite"]) == 0
     ds = xr.open_dataset(out, engine="h5netcdf")
     lo = ds["spectrum_lower_limit_cm3"].values.ravel()
     up = ds["spectrum_upper_limit_cm3"].values.ravel()
