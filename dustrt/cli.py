@@ -14,10 +14,15 @@ from pathlib import Path
 DEMO = "demo"
 
 
-def _load(path):
+def _load(args, path):
+    """The validated scenario; then, on a first run, say why the start is slow."""
     from dustrt.config import load_scenario
+    from dustrt.kernel_cache import kernels_cached
 
-    return load_scenario(DEMO if path is None else path)
+    scenario = load_scenario(DEMO if path is None else path)
+    if not kernels_cached():
+        _say(args, "dustrt: first run: compiling the numerical kernels (15-60 s); later runs reuse them")
+    return scenario
 
 
 def _say(args, message: str) -> None:
@@ -56,7 +61,7 @@ def _finish(args, ds, figure: str | None = None) -> int:
 def _cmd_optics(args) -> int:
     from dustrt.optics import optics_dataset
 
-    sc = _load(args.scenario)
+    sc = _load(args, args.scenario)
     ds = optics_dataset(sc.populations, sc.wavelength_nm, sc.scattering_angle_deg,
                         sc.optics_relative_tolerance,
                         progress=lambda name: _say(args, f"optics: population {name!r}"))
@@ -68,13 +73,13 @@ def _cmd_optics(args) -> int:
 def _cmd_limb(args) -> int:
     from dustrt.forward import limb_dataset
 
-    return _finish(args, limb_dataset(_load(args.scenario), progress=not args.quiet), "limb_figure")
+    return _finish(args, limb_dataset(_load(args, args.scenario), progress=not args.quiet), "limb_figure")
 
 
 def _cmd_observe(args) -> int:
     from dustrt.observe import observation_dataset
 
-    sc = _load(args.scenario)
+    sc = _load(args, args.scenario)
     return _finish(args, observation_dataset(sc, realizations=args.realizations, seed=args.seed,
                                              progress=not args.quiet))
 
@@ -82,14 +87,14 @@ def _cmd_observe(args) -> int:
 def _cmd_separate(args) -> int:
     from dustrt.separate import separate_file
 
-    ds = separate_file(args.observation, _load(args.scenario), progress=not args.quiet)
+    ds = separate_file(args.observation, _load(args, args.scenario), progress=not args.quiet)
     return _finish(args, ds, "separation_figure")
 
 
 def _cmd_limit(args) -> int:
     from dustrt.limits import limits_file
 
-    ds = limits_file(args.observation, _load(args.scenario), method=args.method, progress=not args.quiet)
+    ds = limits_file(args.observation, _load(args, args.scenario), method=args.method, progress=not args.quiet)
     for p in ds["population"].values:
         for k in range(ds.sizes["grain_radius"]):
             sel = ds.sel(population=p).isel(grain_radius=k)
@@ -105,7 +110,7 @@ def _cmd_sweep(args) -> int:
     from dustrt import io
     from dustrt.sweep import run_sweep
 
-    sc = _load(args.scenario)
+    sc = _load(args, args.scenario)
     ds = run_sweep(sc, args.output, scheduler=args.scheduler, workers=args.workers,
                    resume=args.resume, progress=not args.quiet)
     _say(args, f"wrote {args.output}")
