@@ -31,9 +31,10 @@ from pathlib import Path
 import numpy as np
 
 from dustrt.density import reference_density_cm3
+from dustrt.sizes import mean_volume_um3
 
-OUTPUT_KEYS = ("minimum_detectable_density_cm3", "snr_per_unit_density", "colour_ratio_dust",
-               "colour_ratio_zodiacal")
+OUTPUT_KEYS = ("minimum_detectable_density_cm3", "minimum_detectable_volume_density_um3_cm3",
+               "snr_per_unit_density", "colour_ratio_dust", "colour_ratio_zodiacal")
 
 
 def dimension_name(key: str) -> str:
@@ -86,6 +87,9 @@ def detectability(scenario, detection_sigma: float):
         n0 = reference_density_cm3(pop.density)
         sigma_n = n0 / np.sqrt(inv) if inv > 0 else np.inf
         out["minimum_detectable_density_cm3"].append(detection_sigma * sigma_n)
+        # grain volume per unit volume of space: what a size sweep trades (mass loading / bulk density)
+        out["minimum_detectable_volume_density_um3_cm3"].append(detection_sigma * sigma_n
+                                                                 * mean_volume_um3(pop.size))
         out["snr_per_unit_density"].append(1.0 / sigma_n)
         out["colour_ratio_dust"].append(colour_ratio(dust.sum(axis=0), b.solar_irradiance, wl,
                                                      sep.blue_band_nm, sep.red_band_nm))
@@ -193,6 +197,10 @@ def sweep_dataset(scenario, spec, res):
                                                {"units": "cm-3", "long_name": f"density normalisation whose expected (noise-free) dust excess after "
                                                 f"the colour separation is {spec['detection_sigma']:g} sigma (about 50 % "
                                                 "detection probability at that threshold)"}),
+            "minimum_detectable_volume_density_um3_cm3": (
+                pd, arrange(res["minimum_detectable_volume_density_um3_cm3"]),
+                {"units": "um3 cm-3", "long_name": "grain volume per unit volume of space at the minimum "
+                 "detectable density (times the grains' bulk density: the detectable mass loading)"}),
             "snr_per_unit_density": (pd, arrange(res["snr_per_unit_density"]),
                                      {"units": "cm3", "long_name": "expected dust excess significance per unit density normalisation"}),
             "colour_ratio_dust": (pd, arrange(res["colour_ratio_dust"]),

@@ -271,6 +271,9 @@ def test_sweep_physics_scalings(tmp_path):
     slope = np.log(m[-1, 0] / m[0, 0]) / np.log(r[-1] / r[0])
     assert slope == pytest.approx(-6.0, abs=0.05)  # O(x²) Rayleigh corrections at x ≤ 0.36
     np.testing.assert_allclose(m[:, 1] / m[:, 0], 0.5, rtol=1e-9)
+    # monodisperse grains: volume density = number density x 4/3 pi a^3 (a in um)
+    v = ds["minimum_detectable_volume_density_um3_cm3"].isel(population=0).values
+    np.testing.assert_allclose(v, m * (4 / 3) * np.pi * r[:, None] ** 3, rtol=1e-12)
     (tmp_path / "s10.toml").write_text(raw_text.replace("detection_sigma = 5.0", "detection_sigma = 10.0"))
     ds10 = run_sweep(load_scenario(tmp_path / "s10.toml"), tmp_path / "sw10.nc")
     np.testing.assert_allclose(ds10["minimum_detectable_density_cm3"].values,
