@@ -31,6 +31,7 @@ from scipy import integrate, optimize
 from dustrt import geometry as geo
 from dustrt.density import ExponentialProfile, TableProfile
 from dustrt.los import KM_TO_CM, integrate_columns
+from machine import write_bench_json  # validation/machine.py, beside this script
 
 RADIUS_KM = 1737.4  # IAU mean lunar radius
 TOP_KM = 250.0
@@ -166,6 +167,12 @@ def main(argv=None):
     text = "\n".join(lines)
     print(text)
     (Path(__file__).with_name("bench_columns_report.txt")).write_text(text + "\n", encoding="utf-8")
+    write_bench_json(
+        "bench_columns", t_ref / t_fast, "scipy quad per ray / integrate_columns (extinction off)",
+        {"dustrt_extinction_off": t_fast, "dustrt_extinction_on": t_ext, "reference": t_ref},
+        {"sunlit_columns_vs_reference": np.max(rel), "dustrt_vs_tight_reference": err_fast,
+         "reference_vs_tight_reference": err_ref, **{f"extinction_{k.replace(' ', '_')}": v for k, v in ext_err.items()}},
+        {"case": f"{len(looks)} rays, {len(profiles)} populations, relative_tolerance {tol:g}"})
 
 
 if __name__ == "__main__":

@@ -19,6 +19,7 @@ os.environ.setdefault("MIEPYTHON_USE_JIT", "1")  # must be set before importing 
 
 import miepython  # noqa: E402
 import numpy as np  # noqa: E402
+from machine import write_bench_json  # noqa: E402  (validation/machine.py, beside this script)
 
 from dustrt.materials import builtin_material  # noqa: E402
 from dustrt.optics import _converged_nodes, population_optics  # noqa: E402
@@ -70,6 +71,13 @@ def main():
     text = "\n".join(lines)
     print(text)
     Path(__file__).with_name("bench_optics_report.txt").write_text(text + "\n")
+    write_bench_json(
+        "bench_optics", t_ref / t_fast, "per-radius miepython loop / dustrt population_optics (warm)",
+        {"dustrt": t_fast, "reference": t_ref},
+        {"C_sca": np.max(np.abs(o.scattering_cross_section_um2 / csca - 1)),
+         "C_ext": np.max(np.abs(o.extinction_cross_section_um2 / cext - 1)),
+         "phase_function": np.max(np.abs(o.phase_function / phase - 1))},
+        {"case": "lognormal 0.1 um, sigma_g 1.5, 300 wavelengths x 181 angles", "size_nodes": int(a.size)})
 
 
 if __name__ == "__main__":
