@@ -17,12 +17,17 @@ DEMO = "demo"
 def _load(args, path):
     """The validated scenario; then, on a first run, say why the start is slow."""
     from dustrt.config import load_scenario
-    from dustrt.kernel_cache import kernels_cached
 
     scenario = load_scenario(DEMO if path is None else path)
+    _announce_compilation(args)
+    return scenario
+
+
+def _announce_compilation(args) -> None:
+    from dustrt.kernel_cache import kernels_cached
+
     if not kernels_cached():
         _say(args, "dustrt: first run: compiling the numerical kernels (15-60 s); later runs reuse them")
-    return scenario
 
 
 def _say(args, message: str) -> None:
@@ -122,6 +127,17 @@ def _cmd_sweep(args) -> int:
     return 0
 
 
+def _cmd_demo(args) -> int:
+    from dustrt.demo import check_output_folder, run_demo
+
+    check_output_folder(args.output, args.overwrite)
+    _announce_compilation(args)
+    run_demo(args.output, overwrite=args.overwrite, progress=not args.quiet, say=lambda m: _say(args, m))
+    if not args.quiet:
+        print((Path(args.output) / "summary.txt").read_text(encoding="utf-8"))
+    return 0
+
+
 def _count(text: str) -> int:
     """argparse type: an integer >= 0."""
     try:
@@ -174,6 +190,16 @@ def build_parser() -> argparse.ArgumentParser:
         p.set_defaults(func=func)
         return p
 
+    p = sub.add_parser("demo", help="the whole job on the packaged demo scenario (start here)",
+                       description="Optics, limb radiance, zodiacal light, a simulated observation, the "
+                                   "dust/zodiacal separation, upper limits from a simulated non-detection and a "
+                                   "grain-size sweep for the demo scenario (an invented orbiter, demo values); "
+                                   "writes netCDF files, PNG figures and summary.txt into one folder.")
+    p.add_argument("-o", "--output", default="dustrt_demo", metavar="DIR",
+                   help="folder for the outputs (created if needed; default: dustrt_demo)")
+    p.add_argument("--overwrite", action="store_true", help="replace the demo files already in DIR")
+    p.add_argument("-q", "--quiet", action="store_true", help="no progress, status messages or summary")
+    p.set_defaults(func=_cmd_demo)
     command("optics", _cmd_optics, "size-averaged Mie optics of the scenario's grain populations",
             "Compute cross sections, albedo, asymmetry parameter, phase function and polarisation of each "
             "[[population]] on the scenario's wavelength and angle grids, and write them to netCDF.",
@@ -214,6 +240,8 @@ def _check_outputs(args) -> None:
     """Before any work: outputs can be created, are not the inputs, and exist only with --overwrite."""
     from dustrt import io
 
+    if args.command == "demo":
+        return  # a folder of outputs, checked by the demo itself
     outputs = [("output", args.output)] + ([("--plot", args.plot)] if getattr(args, "plot", None) else [])
     inputs = [(n, getattr(args, n, None)) for n in ("scenario", "observation")]
     if len(outputs) == 2 and Path(args.plot).resolve() == Path(args.output).resolve():

@@ -134,3 +134,16 @@ def read_csv_table(path: str | Path, columns: tuple[str, ...] | None = None) -> 
         if not np.all(np.isfinite(out[c])):
             raise ValueError(f"{path}: column {c!r} has a non-finite value")
     return out
+
+
+def write_text(text: str, path: str | Path) -> Path:
+    """Write a UTF-8 text file atomically (temporary file + rename)."""
+    path = check_output_path(path)
+    tmp = _temporary_beside(path, ".tmp")
+    try:
+        Path(tmp).write_text(text, encoding="utf-8")
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+    return path

@@ -194,12 +194,15 @@ def limits_file(observation_path, scenario, method=None, progress=False):
         },
         coords={
             "population": ("population", names, {"long_name": "hypothesised grain population"}),
-            "grain_radius": ("grain_radius", np.arange(len(variants))),
+            "grain_radius": ("grain_radius", np.arange(len(variants)),
+                             {"long_name": "grain-radius index (the scenario's own radii, or its [sweep] radius_um)"}),
             "radius_um": (("population", "grain_radius"), radius,
                           {"units": "um", "long_name": "grain radius: monodisperse radius, lognormal median, or a "
                                                        "power law's lower bound"}),
-            "observation": ("observation", np.arange(spectra.radiance.shape[0])),
-            "line_of_sight": ("line_of_sight", np.arange(spectra.radiance.shape[1])),
+            "observation": ("observation", np.arange(spectra.radiance.shape[0]),
+                            {"long_name": "observation index in the input file"}),
+            "line_of_sight": ("line_of_sight", np.arange(spectra.radiance.shape[1]),
+                              {"long_name": "line-of-sight index in the input file"}),
         },
         attrs={"title": "dustrt upper limits on grain density", "dustrt_version": dustrt.__version__,
                "confidence": conf, "method": method, "method_description": METHOD_LABELS[method],

@@ -162,16 +162,25 @@ def sweep_figure(ds):
             ax.set_ylabel(f"{ds[dims[1]].attrs.get('sweep_key', dims[1])} [{ds[dims[1]].attrs.get('units', '')}]")
             ax.set_title(f"population {p}", fontsize=10)
         return fig
-    fig, ax = plt.subplots(figsize=(6.5, 4.5))
+    fig, (ax, axv) = plt.subplots(1, 2, figsize=(11, 4.5))
     x = dims[0]
     rest = [d for d in dims[1:]]
     for p in ds["population"].values:
         v = var.sel(population=p)
+        vol = ds["minimum_detectable_volume_density_um3_cm3"].sel(population=p)
         if rest:
-            v = v.isel({d: 0 for d in rest})
-        ax.loglog(ds[x], v, marker="o", ms=3, label=f"{p}")
-    ax.set_xlabel(f"{ds[x].attrs.get('sweep_key', x)} [{ds[x].attrs.get('units', '')}]")
+            v, vol = v.isel({d: 0 for d in rest}), vol.isel({d: 0 for d in rest})
+        line, = ax.loglog(ds[x], v, marker="o", ms=3, label=f"{p}")
+        axv.loglog(ds[x], vol, marker="o", ms=3, color=line.get_color(), label=f"{p}")
+        if np.any(np.isfinite(vol.values)):
+            k = int(np.nanargmin(vol.values))  # the most detectable dust mass loading
+            axv.plot(ds[x].values[k], vol.values[k], "*", ms=11, color=line.get_color())
+    for a in (ax, axv):
+        a.set_xlabel(f"{ds[x].attrs.get('sweep_key', x)} [{ds[x].attrs.get('units', '')}]")
+        a.legend(fontsize=7)
     ax.set_ylabel("minimum detectable density [cm⁻³]")
-    ax.set_title(f"{ds.attrs['detection_sigma']:g}σ detectability", fontsize=10)
-    ax.legend(fontsize=7)
+    axv.set_ylabel("minimum detectable grain volume [µm³ cm⁻³]")
+    ax.set_title(f"{ds.attrs['detection_sigma']:g}σ detectability: number density", fontsize=10)
+    axv.set_title("grain volume density (★ most detectable)", fontsize=10)
+    fig.tight_layout()
     return fig
