@@ -370,20 +370,31 @@ class Scenario:
                 return p
         raise KeyError(name)
 
+    def require(self, *needs: str) -> None:
+        """Raise, listing everything missing, unless the tables that ``needs`` ("limb",
+        "instrument") ask for are present."""
+        problems = _Problems(self.source)
+
+        def missing(key, message):
+            problems.add(ScenarioError(f"{self.source}: key '{key}': {message}", key=key))
+
+        if "limb" in needs:
+            for t, v in (("observer", self.observer), ("view", self.view)):
+                if v is None:
+                    missing(t, "table is required for the limb model")
+            for i, p in enumerate(self.populations):
+                if p.density is None:
+                    missing(f"population[{i}].density", "is required for the limb model "
+                                                        "(profile = exponential | power-law | terminator | table)")
+        if "instrument" in needs and self.instrument is None:
+            missing("instrument", "table is required for this command")
+        problems.raise_if_any()
+
     def require_limb(self) -> None:
-        """Raise unless the tables the limb model needs are present."""
-        missing = [t for t, v in (("observer", self.observer), ("view", self.view)) if v is None]
-        if missing:
-            raise ScenarioError(f"{self.source}: key '{missing[0]}': table is required for the limb model")
-        for i, p in enumerate(self.populations):
-            if p.density is None:
-                raise ScenarioError(
-                    f"{self.source}: key 'population[{i}].density': is required for the limb model "
-                    "(profile = exponential | power-law | terminator | table)")
+        self.require("limb")
 
     def require_instrument(self) -> None:
-        if self.instrument is None:
-            raise ScenarioError(f"{self.source}: key 'instrument': table is required for this command")
+        self.require("instrument")
 
 
 TOP_LEVEL = ("wavelengths", "optics", "population", "body", "sun", "observer", "view",

@@ -103,8 +103,7 @@ def observation_dataset(scenario, realizations: int = 0, seed: int | None = None
 
     if realizations < 0 or realizations > 100000:
         raise ValueError(f"--realizations must lie in [0, 100000], got {realizations}")
-    scenario.require_limb()
-    scenario.require_instrument()
+    scenario.require("limb", "instrument")
     inst = scenario.instrument.instrument
     b = binned_limb(scenario, progress=progress)
     centres = b.bin_centres_nm

@@ -60,8 +60,7 @@ def detectability(scenario, detection_sigma: float):
     from dustrt.observe import binned_limb
     from dustrt.separate import colour_ratio, design_matrix, fit_mask, fit_spectra
 
-    scenario.require_limb()
-    scenario.require_instrument()
+    scenario.require("limb", "instrument")
     inst = scenario.instrument.instrument
     b = binned_limb(scenario, extinction=False)
     wl = b.bin_centres_nm
@@ -118,8 +117,7 @@ def compute_chunk(spec, indices):
 def sweep_spec(scenario) -> dict:
     if scenario.sweep is None:
         raise ValueError(f"{scenario.source}: key 'sweep': table is required for a sweep")
-    scenario.require_limb()
-    scenario.require_instrument()
+    scenario.require("limb", "instrument")
     return {"raw": scenario.raw, "source": scenario.source, "base_dir": str(scenario.base_dir),
             "text": scenario.text, "axes": [(k, np.asarray(v, dtype=float)) for k, v in scenario.sweep.axes],
             "detection_sigma": scenario.sweep.detection_sigma}

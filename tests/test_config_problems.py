@@ -107,3 +107,26 @@ tangent_altitudes_km = [10.0, 80.0]
     keys = " ".join(info.value.problems)
     assert "key 'view.tangent_altitudes_km'" in keys
     assert "key 'population[0].material'" in keys
+
+
+def test_limb_lists_every_missing_table(tmp_path, capsys):
+    path = tmp_path / "optics_only.toml"
+    path.write_text('[wavelengths]\nvalues_nm = [400.0, 500.0]\n'
+                    '[[population]]\nname = "a"\nmaterial = { n = 1.5 }\n'
+                    'size = { distribution = "monodisperse", radius_um = 0.1 }\n')
+    assert main(["limb", str(path), "-o", str(tmp_path / "o.nc")]) == 2
+    err = capsys.readouterr().err
+    for key in ("observer", "view", "population[0].density"):
+        assert f"key '{key}'" in err
+    assert "3 problems" in err
+
+
+def test_observe_lists_missing_limb_and_instrument_tables_together(tmp_path, capsys):
+    path = tmp_path / "optics_only.toml"
+    path.write_text('[wavelengths]\nvalues_nm = [400.0, 500.0]\n'
+                    '[[population]]\nname = "a"\nmaterial = { n = 1.5 }\n'
+                    'size = { distribution = "monodisperse", radius_um = 0.1 }\n')
+    assert main(["observe", str(path), "-o", str(tmp_path / "o.nc")]) == 2
+    err = capsys.readouterr().err
+    for key in ("observer", "view", "population[0].density", "instrument"):
+        assert f"key '{key}'" in err
