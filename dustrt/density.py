@@ -45,6 +45,9 @@ KIND_TERMINATOR = 2
 KIND_TABLE = 3
 #: Number of float parameters per profile in PackedProfiles.params.
 N_PACKED_PARAMS = 6
+#: Largest density a table file may hold [cm^-3]: the scenario's bound on any number (config), far
+#: above any physical dust density, and small enough that radiances and electron counts stay finite.
+MAX_TABLE_DENSITY_CM3 = 1e30
 
 
 def _finite_in(name: str, value, low: float, high: float, *, low_open=False, high_open=False) -> float:
@@ -367,6 +370,9 @@ class TableProfile(_ProfileMixin):
         _check_axis(axes[1], "coordinate 'terminator_distance_km'", str(path))
         if not np.all(np.isfinite(grid)) or np.any(grid < 0.0):
             raise ValueError(f"{path}: variable 'density_cm3' must be finite and >= 0 (found NaN, inf or negative values)")
+        if np.any(grid > MAX_TABLE_DENSITY_CM3):
+            raise ValueError(f"{path}: variable 'density_cm3' must lie in [0, {MAX_TABLE_DENSITY_CM3:g}] cm-3, "
+                             f"found {grid.max():g}")
         return cls(axes[0], axes[1], grid, scale=scale, source=str(path))
 
     @classmethod
@@ -380,6 +386,8 @@ class TableProfile(_ProfileMixin):
         required = ("altitude_km", "terminator_distance_km", "density_cm3")
         try:
             text = path.read_text(encoding="utf-8")
+        except UnicodeDecodeError as exc:
+            raise ValueError(f"{path}: not UTF-8 text ({exc.reason} at byte {exc.start})") from None
         except OSError as exc:
             raise ValueError(f"{path}: cannot read: {exc}") from None
         lines = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
@@ -408,6 +416,9 @@ class TableProfile(_ProfileMixin):
                 raise ValueError(f"{path}: column {col!r} contains non-finite values")
         if np.any(arrays["density_cm3"] < 0.0):
             raise ValueError(f"{path}: column 'density_cm3' contains negative values")
+        if np.any(arrays["density_cm3"] > MAX_TABLE_DENSITY_CM3):
+            raise ValueError(f"{path}: column 'density_cm3' must lie in [0, {MAX_TABLE_DENSITY_CM3:g}] cm-3, "
+                             f"found {arrays['density_cm3'].max():g}")
         alt = np.unique(arrays["altitude_km"])
         dist = np.unique(arrays["terminator_distance_km"])
         for col, ax in (("altitude_km", alt), ("terminator_distance_km", dist)):

@@ -398,12 +398,17 @@ def read_throughput_csv(path) -> tuple[np.ndarray, np.ndarray]:
         wavelengths are not strictly increasing, or fewer than 2 rows exist.
     """
     name = os.fspath(path)
-    with open(name, newline="", encoding="utf-8") as handle:
-        rows = [
-            (number, row)
-            for number, row in enumerate(csv.reader(handle), start=1)
-            if row and any(cell.strip() for cell in row) and not row[0].lstrip().startswith("#")
-        ]
+    try:
+        with open(name, newline="", encoding="utf-8") as handle:
+            rows = [
+                (number, row)
+                for number, row in enumerate(csv.reader(handle), start=1)
+                if row and any(cell.strip() for cell in row) and not row[0].lstrip().startswith("#")
+            ]
+    except UnicodeDecodeError as exc:
+        raise ValueError(f"{name}: not UTF-8 text ({exc.reason} at byte {exc.start})") from None
+    except csv.Error as exc:
+        raise ValueError(f"{name}: not a readable CSV table ({exc})") from None
     if not rows:
         raise ValueError(f"{name}: no header row (expected columns wavelength_nm, throughput)")
     header = [cell.strip() for cell in rows[0][1]]

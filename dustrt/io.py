@@ -115,15 +115,21 @@ def read_csv_table(path: str | Path, columns: tuple[str, ...] | None = None) -> 
     path = Path(path)
     if not path.is_file():
         raise ValueError(f"{path}: file not found")
-    with open(path, newline="") as fh:
-        lines = [ln for ln in fh if ln.strip() and not ln.lstrip().startswith("#")]
+    try:
+        with open(path, newline="", encoding="utf-8") as fh:
+            lines = [ln for ln in fh if ln.strip() and not ln.lstrip().startswith("#")]
+    except UnicodeDecodeError as exc:
+        raise ValueError(f"{path}: not UTF-8 text ({exc.reason} at byte {exc.start})") from None
     reader = csv.reader(lines)
-    header = [h.strip() for h in next(reader, [])]
+    try:
+        header = [h.strip() for h in next(reader, [])]
+        rows = list(reader)
+    except csv.Error as exc:
+        raise ValueError(f"{path}: not a readable CSV table ({exc})") from None
     columns = tuple(header) if columns is None else tuple(columns)
     missing = [c for c in columns if c not in header]
     if missing:
         raise ValueError(f"{path}: missing column {missing[0]!r} (need {', '.join(columns)})")
-    rows = list(reader)
     out = {}
     for c in columns:
         i = header.index(c)

@@ -123,10 +123,13 @@ def read_material_csv(path: str | Path, name: str | None = None) -> Material:
     path = Path(path)
     try:
         t = read_csv_table(path, ("wavelength_nm", "n", "k"))
+    except ValueError as exc:  # the message starts with the path
+        raise ValueError(f"material table {exc}") from None
+    try:
         return Material(name=name or path.stem, wavelength_nm=tuple(t["wavelength_nm"]), n=tuple(t["n"]),
                         k=tuple(t["k"]), source=str(path))
     except ValueError as exc:
-        raise ValueError(f"material table {exc}") from None
+        raise ValueError(f"material table {path}: {exc}") from None
 
 
 @lru_cache(maxsize=1)

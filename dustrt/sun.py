@@ -21,6 +21,8 @@ from dustrt.io import read_csv_table
 
 BUILTIN_FILE = "solar_e490_200-1100nm.csv"
 COLUMNS = ("wavelength_nm", "irradiance_w_m2_nm")
+#: Plausibility bound on a tabulated spectrum at 1 AU [W m^-2 nm^-1]: the E-490 peak is about 2.2.
+MAX_IRRADIANCE_W_M2_NM = 1000.0
 
 
 @lru_cache(maxsize=8)
@@ -32,6 +34,10 @@ def _read(path: str) -> tuple[np.ndarray, np.ndarray]:
     if np.any(f <= 0):
         raise ValueError(f"{path}: column 'irradiance_w_m2_nm' must be > 0 (sunlight has no zero bins "
                          "in the UV-visible)")
+    if np.any(f > MAX_IRRADIANCE_W_M2_NM):
+        raise ValueError(f"{path}: column 'irradiance_w_m2_nm' must lie in (0, {MAX_IRRADIANCE_W_M2_NM:g}] W m-2 nm-1 "
+                         f"at 1 AU, found {f.max():g} (the Sun peaks near 2; larger values suggest other units, "
+                         "e.g. mW or per um)")
     wl.setflags(write=False)
     f.setflags(write=False)
     return wl, f
