@@ -66,6 +66,8 @@ def read_observation(path, scenario=None) -> ObservedSpectra:
         if v not in ds.variables:
             raise ValueError(f"{path}: variable {v!r} is missing (a calibrated observation needs radiance, "
                              "radiance_uncertainty, look_direction, observer_position_km)")
+    for name, expected in OBSERVATION_UNITS.items():
+        _check_units(path, ds, name, expected)
     want = ("observation", "line_of_sight", "wavelength_nm")
     rad = ds["radiance"]
     if set(rad.dims) != set(want):
@@ -122,23 +124,39 @@ def read_observation(path, scenario=None) -> ObservedSpectra:
         raise ValueError(f"{path}: variable 'radiance' has no finite, unmasked bin")
     looks = geo("look_direction")
     obs = geo("observer_position_km")
-    if not (np.all(np.isfinite(looks)) and np.all(np.isfinite(obs))):
-        raise ValueError(f"{path}: geometry variables must be finite")
+    for name, arr in (("look_direction", looks), ("observer_position_km", obs)):
+        if not np.all(np.isfinite(arr)):
+            raise ValueError(f"{path}: variable {name!r} must be finite")
+    norm = np.linalg.norm(looks, axis=-1)
+    if np.any(np.abs(norm - 1.0) > 1e-6):
+        i = np.argwhere(np.abs(norm - 1.0) > 1e-6)[0]
+        raise ValueError(f"{path}: variable 'look_direction' must hold unit vectors (|norm - 1| <= 1e-6); found norm "
+                         f"{norm[tuple(i)]:.9g} at (observation, line_of_sight) = {tuple(int(k) for k in i)}")
+    if scenario is not None:
+        alt = np.linalg.norm(obs, axis=-1) - scenario.body_radius_km
+        if np.any(alt < 0):
+            i = np.unravel_index(np.argmin(alt), alt.shape)
+            raise ValueError(f"{path}: variable 'observer_position_km' must be at or above the surface (body radius "
+                             f"{scenario.body_radius_km:g} km in {scenario.source}); found altitude {alt[i]:.6g} km "
+                             f"at (observation, line_of_sight) = {tuple(int(k) for k in i)}")
 
-    def attr(name):
+    def attr(name, positive=False):
         if name not in ds.attrs:
             return None
         try:
             v = float(np.asarray(ds.attrs[name]).ravel()[0])
         except (TypeError, ValueError, IndexError):
             v = np.nan
-        if not (np.isfinite(v) and v >= 0):
-            raise ValueError(f"{path}: attribute {name!r} must be a number >= 0, got {ds.attrs[name]!r}")
+        if not (np.isfinite(v) and (v > 0 if positive else v >= 0)):
+            raise ValueError(f"{path}: attribute {name!r} must be a number {'>' if positive else '>='} 0, "
+                             f"got {ds.attrs[name]!r}")
         return v
 
-    width = attr("bin_width_nm")
+    width = attr("bin_width_nm", positive=True)
     fwhm = attr("resolution_fwhm_nm")
     fov = attr("field_of_view_deg")
+    if scenario is not None:
+        _check_model_covers(path, scenario, wl, width, fwhm)
     if scenario is not None and fov is not None and scenario.instrument is not None:
         model_fov = scenario.instrument.instrument.field_of_view_deg
         if scenario.instrument.field_of_view_rings > 0 and abs(model_fov - fov) > 1e-6 * max(fov, 1e-12):
@@ -148,6 +166,49 @@ def read_observation(path, scenario=None) -> ObservedSpectra:
                            observer_km=np.ascontiguousarray(obs), look_direction=np.ascontiguousarray(looks),
                            bin_width_nm=width, resolution_fwhm_nm=fwhm, n_nan=int(nan.sum()),
                            n_file_masked=int((masked & ~nan).sum()))
+
+
+#: The units dustrt writes (and requires) for the variables of a calibrated observation.
+OBSERVATION_UNITS = {"radiance": RADIANCE_UNITS, "radiance_uncertainty": RADIANCE_UNITS, "wavelength_nm": "nm"}
+
+
+def _check_units(path, ds, name, expected) -> None:
+    """Reject a variable whose ``units`` attribute is not ``expected`` (naming file, variable, both units).
+
+    ``radiance`` and ``radiance_uncertainty`` must state their units; ``wavelength_nm`` names its
+    unit already, so a missing attribute there is taken as nm.
+    """
+    if name not in ds.variables:
+        return
+    var = ds[name]
+    units = var.attrs.get("units", var.encoding.get("units"))  # xarray moves time-like units to encoding
+    if units is None:
+        if name == "wavelength_nm":
+            return
+        raise ValueError(f"{path}: variable {name!r} has no 'units' attribute; expected units {expected!r}")
+    if isinstance(units, bytes):
+        units = units.decode("utf-8", "replace")
+    if not isinstance(units, str) or " ".join(units.split()) != expected:
+        raise ValueError(f"{path}: variable {name!r} has units {units!r}; expected units {expected!r} "
+                         "(convert the file to these units)")
+
+
+def _check_model_covers(path, scenario, wavelength_nm, width, fwhm) -> None:
+    """The scenario's model wavelengths must cover the file's bins and their line-spread function."""
+    from dustrt.instrument import line_spread_matrix
+
+    inst = scenario.instrument.instrument if scenario.instrument is not None else None
+    width = width if width is not None else (inst.bin_width_nm if inst is not None else None)
+    fwhm = fwhm if fwhm is not None else (inst.resolution_fwhm_nm if inst is not None else None)
+    if width is None or fwhm is None:
+        return  # reported by build_templates (the line-spread function is unknown)
+    model = scenario.wavelength_nm
+    try:
+        line_spread_matrix(model, wavelength_nm, width, fwhm)
+    except ValueError as exc:
+        raise ValueError(f"{path}: coordinate 'wavelength_nm': bins {wavelength_nm[0]:g}-{wavelength_nm[-1]:g} nm "
+                         f"reach outside the model wavelengths {model[0]:g}-{model[-1]:g} nm of {scenario.source} "
+                         f"([wavelengths]): {exc}") from None
 
 
 @dataclass(frozen=True)
@@ -333,9 +394,13 @@ def band_mean(values, wavelength_nm, band, use=None):
 
 
 def colour_ratio(radiance, solar_irradiance, wavelength_nm, blue_band, red_band, use=None):
-    """Blue/red ratio of the solar-normalised radiance (1 for a solar-coloured spectrum)."""
-    norm = radiance / solar_irradiance
-    return band_mean(norm, wavelength_nm, blue_band, use) / band_mean(norm, wavelength_nm, red_band, use)
+    """Blue/red ratio of the solar-normalised radiance (1 for a solar-coloured spectrum).
+
+    NaN (or inf) where the red band holds no signal, e.g. with the zodiacal light switched off.
+    """
+    with np.errstate(invalid="ignore", divide="ignore"):
+        norm = radiance / solar_irradiance
+        return band_mean(norm, wavelength_nm, blue_band, use) / band_mean(norm, wavelength_nm, red_band, use)
 
 
 def separate_file(observation_path, scenario, progress=False):
