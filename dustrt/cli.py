@@ -233,6 +233,7 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--scheduler", metavar="ADDRESS", help="address of an existing dask.distributed scheduler")
     g.add_argument("--workers", type=_positive, metavar="N", help="local cluster size (default: serial in-process)")
     p.add_argument("--resume", action="store_true", help="reuse finished chunks of an interrupted sweep")
+    parser._dustrt_commands = dict(sub.choices)
     return parser
 
 
@@ -276,7 +277,9 @@ def main(argv=None) -> int:
     from dustrt.chunks import ChunkError  # light: imports no dask
 
     parser = build_parser()
-    args = parser.parse_args(argv)
+    args, unknown = parser.parse_known_args(argv)
+    if unknown:  # reported by the subcommand, so the message names it ("dustrt limb: error: ...")
+        parser._dustrt_commands[args.command].error(f"unrecognized arguments: {' '.join(unknown)}")
     import warnings
 
     previous_format = _plain_warnings(args.command)

@@ -768,6 +768,15 @@ def _check_view_against_observer(s: Scenario, top: _Table) -> None:
     if s.view is None or s.observer is None or s.view.tangent_altitudes_km is None:
         return
     h = s.view.tangent_altitudes_km
+    from dustrt.geometry import limb_look_directions, observer_position_km
+
+    obs = s.observer
+    try:  # the limb construction needs a sunward horizontal direction at the observer
+        position = observer_position_km(s.body_radius_km, obs.altitude_km, obs.latitude_deg, obs.local_time_h)
+        limb_look_directions(position, s.body_radius_km, h[h < obs.altitude_km][:1], s.view.azimuth_deg)
+    except ValueError as exc:
+        key = "solar_zenith_deg" if "solar_zenith_deg" in s.raw.get("observer", {}) else "local_time_h"
+        raise top.error(f"observer.{key}", str(exc)) from None
     if np.any(h >= s.observer.altitude_km):
         raise top.error("view.tangent_altitudes_km",
                         f"must be below the observer altitude ({s.observer.altitude_km:g} km), got {h.max():g}")

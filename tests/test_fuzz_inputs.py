@@ -280,11 +280,7 @@ SINGLE_MUTATIONS += [((), "unknown_top_level_key", {**BASE, "bogus_table": {"x":
                      ((), "empty_document", {})]
 
 # defects of dustrt/config.py or dustrt/cli.py (not fixed here): (path, kind) -> reason
-CONFIG_DEFECTS: dict[tuple, str] = {
-    (("observer", "local_time_h"), "zero"):
-        "an observer at the antisolar point (local_time_h = 0 at latitude 0) passes validation; the limb "
-        "geometry then fails with a message naming neither the scenario file nor the key",
-}
+CONFIG_DEFECTS: dict[tuple, str] = {}  # (key path, mutation kind) -> known config defect (strict xfail)
 
 
 def _single_params():
@@ -703,9 +699,7 @@ USAGE_ERRORS = [
     pytest.param("limit", ["--method", "frequentist"], "--method", id="unknown-method"),
     pytest.param("sweep", ["--workers", "0"], "--workers", id="zero-workers"),
     pytest.param("sweep", ["--workers", "2", "--scheduler", "tcp://x:1"], "--scheduler", id="workers-and-scheduler"),
-    pytest.param("limb", ["--no-such-option"], "--no-such-option", id="unknown-option", marks=pytest.mark.xfail(
-        strict=True, reason="cli: an unknown option is reported by the top-level parser as 'dustrt: error:', "
-                            "without the command's name")),
+    pytest.param("limb", ["--no-such-option"], "--no-such-option", id="unknown-option"),
 ]
 
 
