@@ -459,8 +459,10 @@ def separate_file(observation_path, scenario, progress=False):
         },
         coords={
             "population": ("population", names, {"long_name": "hypothesised grain population"}),
-            "observation": ("observation", np.arange(spectra.radiance.shape[0])),
-            "line_of_sight": ("line_of_sight", np.arange(spectra.radiance.shape[1])),
+            "observation": ("observation", np.arange(spectra.radiance.shape[0]),
+                            {"long_name": "observation index in the input file"}),
+            "line_of_sight": ("line_of_sight", np.arange(spectra.radiance.shape[1]),
+                              {"long_name": "line-of-sight index in the input file"}),
             "wavelength_nm": ("wavelength_nm", wl, {"units": "nm", "long_name": "bin centre wavelength"}),
             "parameter": ("parameter", params, {"long_name": "fitted amplitude"}),
             "parameter_2": ("parameter_2", params, {"long_name": "fitted amplitude (second index of the covariance)"}),
