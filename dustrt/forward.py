@@ -62,13 +62,22 @@ def radiance_from_columns(solar_irradiance, scattering_cross_section_um2, extinc
     scattering_cross_section_um2, extinction_cross_section_um2 : (P, W) [µm²].
     phase_function : (P, L, W), normalised to 4π, at each ray's scattering angle.
     sunlit_column_cm2 : (P, L) [cm⁻²].
-    extinction_weight_cm4 : (P, P, L) [cm⁻⁴] or None for no extinction.
+    extinction_weight_cm4 : (P, P, L) [cm⁻⁴] or None for no extinction.  With it, each
+        population's sunlit column is attenuated by exp(-<τ>), <τ> the mean optical depth
+        to the Sun and back to the observer of its grains (see the comment below).
     """
     csca = np.asarray(scattering_cross_section_um2) * UM2_TO_CM2
     effective = np.asarray(sunlit_column_cm2, dtype=float)[:, :, None]  # (P, L, 1)
     if extinction_weight_cm4 is not None:
+        # The exact attenuated column is ∫ n_p exp(-τ(s)) ds; its first-order weights give the
+        # column-weighted mean optical depth <τ>_p = Σ_q K_pq C_ext,q / N_p.  N_p exp(-<τ>_p) agrees
+        # with the first-order result 1 - <τ> to first order, stays positive at any depth, and by
+        # Jensen's inequality (exp is convex) is a lower bound on the exact column.
         cext = np.asarray(extinction_cross_section_um2) * UM2_TO_CM2  # (Q, W)
-        effective = effective - np.einsum("pql,qw->plw", extinction_weight_cm4, cext)
+        weighted = np.einsum("pql,qw->plw", extinction_weight_cm4, cext)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mean_tau = np.where(effective > 0, weighted / np.where(effective > 0, effective, 1.0), 0.0)
+        effective = effective * np.exp(-mean_tau)
     return solar_irradiance[None, None, :] * csca[:, None, :] * phase_function / (4 * np.pi) * effective
 
 
@@ -237,9 +246,14 @@ def compute_limb(scenario, geometry: LimbGeometry | None = None, progress=False,
     pop_rad = radiance_from_columns(f_sun, csca, cext, phase, columns.sunlit_column_cm2, ext)
     tau = np.einsum("pl,pw->lw", columns.column_cm2, cext * UM2_TO_CM2)
     if columns.extinction_included and np.nanmax(tau, initial=0.0) > FIRST_ORDER_TAU_LIMIT:
-        warn(f"line-of-sight optical depth reaches {np.nanmax(tau):.3g}; the first-order extinction "
-             f"correction is accurate only for tau << 1")
+        warn(f"line-of-sight optical depth reaches {np.nanmax(tau):.3g}; extinction uses the mean optical "
+             "depth of the scattering grains, accurate for tau << 1; above tau ~ 1 the radiance is a lower bound "
+             "that can be several times too low")
     zod, surf = background_radiance(scenario, geometry, columns, f_sun)
+    if columns.extinction_included:
+        # zodiacal light and the surface lie behind all the dust on the line of sight
+        zod = zod * np.exp(-tau)
+        surf = surf * np.exp(-tau)
     return LimbResult(wavelength_nm=scenario.wavelength_nm, solar_irradiance=f_sun, geometry=geometry,
                       columns=columns, scattering_cross_section_um2=csca, extinction_cross_section_um2=cext,
                       phase_function=phase, population_radiance=pop_rad, optical_depth=tau,
