@@ -3,7 +3,7 @@
 200 lines of sight × 300 wavelengths × 2 populations (an exponential profile and a
 TableProfile with terminator dependence; the geometry and densities of
 bench_columns.py, demo values), extinction off.  dustrt: integrate_columns, then
-optics at the rays' scattering angles and the DESIGN.md product.  Reference:
+optics at the rays' scattering angles and the radiance product of docs/conventions.md.  Reference:
 scipy.integrate.quad per line of sight and population (bench_columns.reference_sunlit,
 epsrel equal to the tolerance), then the same optics product.  Prints the speed
 ratio and the largest relative difference of the radiance; writes bench_limb_report.txt.

@@ -1,23 +1,37 @@
-"""Registry of dustrt's comparisons against the outside world.
+"""Registry of dustrt's validation checks.
 
 Each check is a small function returning one or more :class:`Row` objects: the quantity,
-its source (author, year, journal/report, table or equation), the reference value,
-dustrt's value, the difference (relative or absolute, stated), the tolerance and a
-provenance flag:
+its source (author, year, journal/report, table or equation; for values computed from a
+formula, "computed from <formula>"), the reference value, dustrt's value, the difference
+(relative or absolute, stated), the tolerance, the basis of that tolerance and a provenance
+flag for the reference:
 
-- ``published``: a value read in the named source (or computed there from a stated formula,
-  CHECK_VALUES.md flag (a));
-- ``analytic``: a closed-form result or an exact identity, evaluated here;
-- ``recalled from memory``: a value whose match to the printed source is recalled only
-  (CHECK_VALUES.md flag (b));
+- ``published``: a value read in the named source;
+- ``analytic``: a closed-form result or an exact identity, evaluated here (or computed from a
+  stated formula);
+- ``computed from the published table``: a number derived here from a published data table
+  (e.g. an integral of its rows);
+- ``recalled from memory``: a value whose match to the printed source is recalled only, not
+  re-read;
 - ``common practice``: a rule of the trade with no single source;
 - ``independent code``: another general-purpose implementation of the same theory.
+
+Sources cited in rows are the original publications (or files inside this repository); no
+row cites a file outside the repository.
+
+Checks are of two kinds (``Check.kind``):
+
+- ``external``: dustrt against something it was not built from (published tables computed
+  by others, analytic results the code does not contain, independent codes, statistics);
+- ``implementation``: dustrt against the published constant, formula or table it was
+  built from (a transcription / implementation check, not an external validation). These
+  are reported in a separate "Implementation checks" section.
 
 Tolerances are fixed before looking at results and come from one of: half a unit in the
 last printed digit of the reference; an analytic error bound; the accuracy dustrt's
 integrator is asked for (its documented contract); four binomial standard errors of a
-simulation with a fixed seed. Reference values are those of
-``shared/reference/CHECK_VALUES.md`` and of the pytest suite (tests/test_*.py).
+simulation with a fixed seed; a published uncertainty; or, where none of these exists, a
+rule of the trade, labelled "common practice" in the tolerance-basis column.
 
 Only dustrt's public Python API is called. Figures (model vs reference with a residual
 panel) are produced by the optional ``figure`` function of a check.
@@ -39,9 +53,19 @@ ANALYTIC = "analytic"
 MEMORY = "recalled from memory"
 PRACTICE = "common practice"
 CODE = "independent code"
-PROVENANCE_FLAGS = (PUBLISHED, ANALYTIC, MEMORY, PRACTICE, CODE)
+COMPUTED_TABLE = "computed from the published table"
+PROVENANCE_FLAGS = (PUBLISHED, ANALYTIC, COMPUTED_TABLE, MEMORY, PRACTICE, CODE)
 
-R_MOON_KM = 1737.4  # IAU mean lunar radius (CHECK_VALUES.md "Sun, Moon")
+EXTERNAL = "external"
+IMPLEMENTATION = "implementation"
+CHECK_KINDS = (EXTERNAL, IMPLEMENTATION)
+
+# Tolerance bases (the report's "tolerance basis" column)
+PRINTED_PRECISION = "printed precision (half a unit in the last printed digit)"
+ROUND_OFF = "round-off (exact identity)"
+RTOL = "integrator's requested relative_tolerance (documented contract)"
+
+R_MOON_KM = 1737.4  # IAU mean lunar radius
 KM_TO_CM = 1e5
 
 # --------------------------------------------------------------------------- infrastructure
@@ -60,6 +84,7 @@ class Row:
     tolerance: float
     passed: bool
     provenance: str
+    tolerance_basis: str = ""
 
 
 @dataclass(frozen=True)
@@ -68,18 +93,35 @@ class Check:
     group: str
     func: Callable[[], list[Row]]
     figure: Callable[[Path], Path] | None = field(default=None)
+    kind: str = EXTERNAL
 
 
 REGISTRY: dict[str, Check] = {}
 
+#: Notes printed under a group's table in the report (group name -> text).
+GROUP_NOTES: dict[str, str] = {
+    "Zodiacal light": (
+        "Table 19 rows: the 15 % tolerance is common practice for a model-vs-model comparison in which "
+        "Leinert et al. (1998) used a coarser solar spectrum than the 1-nm ASTM E-490 dustrt uses; it is not "
+        "the printed precision (2 digits, about ±2-4 %), which dustrt does not meet at most of these wavelengths (see the difference column). "
+        "Pass/fail is judged on dustrt as it runs (1-nm E-490). The quantity column also gives the result with "
+        "the E-490 boxcar-averaged over 20 nm (as tests/test_zodi.py does at 300 and 900 nm): at 400 nm that "
+        "variant differs from Table 19 by about -21 %, beyond 15 %, because the 390-410 nm window contains the "
+        "deep Ca II H and K lines (393.4, 396.8 nm); the 400-nm comparison is limited by the unknown spectral "
+        "resolution behind Table 19 and should be read as agreement to roughly ±20 %."
+    ),
+}
 
-def check(name: str, group: str, figure: Callable[[Path], Path] | None = None):
-    """Register a check function under ``name``."""
+
+def check(name: str, group: str, figure: Callable[[Path], Path] | None = None, kind: str = EXTERNAL):
+    """Register a check function under ``name``; ``kind`` is "external" or "implementation"."""
+    if kind not in CHECK_KINDS:
+        raise ValueError(f"kind must be one of {CHECK_KINDS}, got {kind!r}")
 
     def deco(func):
         if name in REGISTRY:
             raise ValueError(f"duplicate check name {name!r}")
-        REGISTRY[name] = Check(name, group, func, figure)
+        REGISTRY[name] = Check(name, group, func, figure, kind)
         return func
 
     return deco
@@ -90,14 +132,16 @@ def half_unit(printed: str) -> float:
     return 0.5 * float(Decimal(1).scaleb(Decimal(printed).as_tuple().exponent))
 
 
-def compare(quantity, source, reference, value, tolerance, kind="rel", provenance=PUBLISHED) -> Row:
+def compare(quantity, source, reference, value, tolerance, kind="rel", provenance=PUBLISHED, *, basis: str) -> Row:
     """A row comparing ``value`` with ``reference``.
 
     ``reference`` may be a printed string (kept verbatim in the report). ``kind`` is
-    "rel" (|v - r| / |r|) or "abs" (|v - r|).
+    "rel" (|v - r| / |r|) or "abs" (|v - r|). ``basis`` says where the tolerance comes from.
     """
     if provenance not in PROVENANCE_FLAGS:
         raise ValueError(f"unknown provenance {provenance!r}")
+    if not basis:
+        raise ValueError("every tolerance needs a stated basis")
     r = float(reference)
     v = float(value)
     if kind == "rel":
@@ -107,12 +151,12 @@ def compare(quantity, source, reference, value, tolerance, kind="rel", provenanc
     else:
         raise ValueError(f"kind must be 'rel' or 'abs', got {kind!r}")
     passed = bool(np.isfinite(diff) and diff <= tolerance)
-    return Row(quantity, source, reference, v, float(diff), kind, float(tolerance), passed, provenance)
+    return Row(quantity, source, reference, v, float(diff), kind, float(tolerance), passed, provenance, basis)
 
 
-def printed(quantity, source, reference: str, value, provenance=PUBLISHED) -> Row:
+def printed(quantity, source, reference: str, value, provenance=PUBLISHED, basis=PRINTED_PRECISION) -> Row:
     """Compare with a printed value; tolerance half a unit in its last printed digit (absolute)."""
-    return compare(quantity, source, reference, value, half_unit(reference), "abs", provenance)
+    return compare(quantity, source, reference, value, half_unit(reference), "abs", provenance, basis=basis)
 
 
 def _savefig(fig, path: Path) -> Path:
@@ -144,7 +188,7 @@ def _figure(nrows_heights=(3, 1), figsize=(6.4, 5.0)):
 # --------------------------------------------------------------------------- Mie
 
 WISCOMBE = "Wiscombe 1979, NCAR/TN-140+STR, MIEV0 test case {}"
-# Wiscombe (1979) MIEV0 test answers (CHECK_VALUES.md, flag a). m written with Im m <= 0 as in
+# Wiscombe (1979) MIEV0 test answers, as printed in the report. m written with Im m <= 0 as in
 # the report; dustrt takes m = n + ik (k >= 0), so it is conjugated. Printed strings kept.
 WISCOMBE_1979 = [
     (7, 10.0, 0.75, "2.232265", "2.232265", "0.896473"),
@@ -196,7 +240,8 @@ def mie_wiscombe_1979_case14_amplitudes():
         part = "Re" if k < 7 else "Im"
         theta = 30 * (k % 7)
         rows.append(compare(f"{part} {name}({theta} deg), worst of 14 parts, x=1, m=1.5-1i",
-                            WISCOMBE.format(14), f"{ref_part:.7f}", got_part, 5e-8, "abs"))
+                            WISCOMBE.format(14), f"{ref_part:.7f}", got_part, 5e-8, "abs",
+                            basis=PRINTED_PRECISION))
     return rows
 
 
@@ -205,7 +250,7 @@ def mie_bohren_huffman_appendix_a():
     from dustrt.mie import sphere_amplitudes, sphere_efficiencies
 
     # Bohren & Huffman (1983) Appendix A sample output: m = 1.55, a = 0.525 µm, λ = 0.6328 µm,
-    # exact x (CHECK_VALUES.md).
+    # exact x (the printed x = 5.213 is rounded; the sample output was computed with the exact x).
     src = "Bohren & Huffman 1983, Absorption and Scattering of Light by Small Particles, App. A sample output"
     x = 2 * np.pi * 0.525 / 0.6328
     e = sphere_efficiencies(x, 1.55)
@@ -226,18 +271,20 @@ def mie_rayleigh_limit():
     from dustrt.mie import sphere_efficiencies
 
     # Bohren & Huffman (1983) ch. 5: Qsca = 8/3 x^4 |K|^2, Qabs = 4 x Im K, K = (m^2-1)/(m^2+2);
-    # relative corrections O(x^2): tolerance 10 x^2 (CHECK_VALUES.md).
-    src = "Bohren & Huffman 1983, ch. 5 (Rayleigh limit); error bound 10x^2"
+    # relative corrections O(x^2): tolerance 10 x^2 (the order of the neglected term, with a
+    # factor-10 margin for its m-dependent coefficient: common practice).
+    src = "computed from Qsca = 8/3 x^4 |K|^2, Qabs = 4x Im K (Bohren & Huffman 1983, ch. 5, Rayleigh limit)"
+    basis = "neglected term O(x^2) (Bohren & Huffman 1983 ch. 5) with factor-10 margin: 10x^2 (common practice)"
     x = 1e-3
     rows = []
     for m in (1.33 + 0j, 1.5 + 0.1j, 1.7 + 0.5j):
         K = (m**2 - 1) / (m**2 + 2)
         e = sphere_efficiencies(x, m)
         rows.append(compare(f"Qsca (x=1e-3, m={m.real:g}+{m.imag:g}i)", src, 8 / 3 * x**4 * abs(K) ** 2,
-                            e.scattering, 10 * x**2, "rel", ANALYTIC))
+                            e.scattering, 10 * x**2, "rel", ANALYTIC, basis=basis))
         if m.imag > 0:
             rows.append(compare(f"Qabs (x=1e-3, m={m.real:g}+{m.imag:g}i)", src, 4 * x * K.imag,
-                                e.absorption, 10 * x**2, "rel", ANALYTIC))
+                                e.absorption, 10 * x**2, "rel", ANALYTIC, basis=basis))
     return rows
 
 
@@ -245,11 +292,15 @@ def mie_rayleigh_limit():
 def mie_large_x_extinction_limit():
     from dustrt.mie import sphere_efficiencies
 
-    # van de Hulst (1957): Qext -> 2; |Qext(1e4)-2| < 6e-3, |Qext(1e5)-2| < 1.5e-3 (CHECK_VALUES.md)
-    src = "van de Hulst 1957, Light Scattering by Small Particles (extinction paradox)"
+    # van de Hulst (1957): Qext -> 2 as x -> infinity (the limit is analytic). The bounds
+    # |Qext(1e4)-2| < 6e-3 and |Qext(1e5)-2| < 1.5e-3 are NOT an analytic error bound: they are
+    # "safe" margins for the approach to the limit, a rule of the trade. The rows are therefore
+    # labelled common practice, both in provenance and in the tolerance basis.
+    src = "van de Hulst 1957, Light Scattering by Small Particles: Qext -> 2 for x -> infinity"
+    basis = "common practice (safe bound on the approach to the limit; not an analytic bound)"
     e = sphere_efficiencies(np.array([1e4, 1e5]), 1.5 + 0.01j)
-    return [compare("Qext (x=1e4, m=1.5+0.01i)", src, 2.0, e.extinction[0], 6e-3, "abs", ANALYTIC),
-            compare("Qext (x=1e5, m=1.5+0.01i)", src, 2.0, e.extinction[1], 1.5e-3, "abs", ANALYTIC)]
+    return [compare("Qext (x=1e4, m=1.5+0.01i)", src, 2.0, e.extinction[0], 6e-3, "abs", PRACTICE, basis=basis),
+            compare("Qext (x=1e5, m=1.5+0.01i)", src, 2.0, e.extinction[1], 1.5e-3, "abs", PRACTICE, basis=basis)]
 
 
 @check("mie_optical_theorem", "Mie")
@@ -262,7 +313,7 @@ def mie_optical_theorem():
     for x, m in ((0.3, 1.6 + 0.01j), (5.0, 1.5 + 0.1j), (40.0, 1.33 + 0j)):
         s1, _ = sphere_amplitudes(x, m, [0.0])
         rows.append(compare(f"4 Re S(0)/x^2 vs Qext (x={x:g})", src, sphere_efficiencies(x, m).extinction,
-                            4 * s1[0].real / x**2, 1e-10, "rel", ANALYTIC))
+                            4 * s1[0].real / x**2, 1e-10, "rel", ANALYTIC, basis=ROUND_OFF))
     return rows
 
 
@@ -270,7 +321,7 @@ MIEPY_M = 1.6 + 0.03j
 
 
 def _miepython():
-    # miepython 3.3: pure-Python unless MIEPYTHON_USE_JIT=1 is set before import (CHECK_VALUES.md);
+    # miepython 3.3: pure-Python unless MIEPYTHON_USE_JIT=1 is set before import (its source);
     # the pure-Python path is fast enough for a few hundred size parameters.
     import miepython
 
@@ -315,8 +366,9 @@ def _fig_mie_vs_miepython(out_dir: Path) -> Path:
 def mie_vs_miepython():
     from dustrt.mie import sphere_efficiencies
 
-    # miepython (PyPI; m = n - ik). scattnlay 2.4 and miepython agree to <= 1e-7
-    # (CHECK_VALUES.md), so 1e-7 relative is the inter-code tolerance.
+    # miepython (PyPI; m = n - ik). Two independent codes (scattnlay 2.4 and miepython 3.3) were
+    # seen to agree to <= 1e-7 relative, so 1e-7 is the inter-code tolerance for Qext, Qsca;
+    # g (a ratio of two small numbers at x = 0.05) gets 1e-6. Both are rules of the trade.
     miepython = _miepython()
     src = f"miepython {miepython.__version__} (PyPI), efficiencies_mx"
     x = np.array([0.05, 0.7, 3.2, 15.0, 60.0])
@@ -327,37 +379,51 @@ def mie_vs_miepython():
                            ("g", e.asymmetry_parameter, g)):
         k = int(np.argmax(np.abs(got / ref - 1)))
         rows.append(compare(f"{name}, worst of x=0.05..60, m=1.6+0.03i (at x={x[k]:g})", src, ref[k], got[k],
-                            1e-7 if name != "g" else 1e-6, "rel", CODE))
+                            1e-7 if name != "g" else 1e-6, "rel", CODE,
+                            basis="common practice (observed agreement of two independent Mie codes ~1e-7; "
+                                  "1e-6 for g, a ratio of small numbers at x=0.05)"))
     return rows
 
 
 # --------------------------------------------------------------------------- Sun
 
 
-@check("sun_e490", "Sun")
-def sun_e490():
+@check("sun_inverse_square", "Sun")
+def sun_inverse_square():
+    from dustrt.sun import solar_irradiance
+
+    ratio = solar_irradiance([550.0], distance_au=2.0)[0] / solar_irradiance([550.0])[0]
+    return [compare("F(2 au)/F(1 au)", "inverse-square law (flux conservation)", 0.25, ratio, 1e-14, "rel",
+                    ANALYTIC, basis=ROUND_OFF)]
+
+
+@check("impl_sun_e490_table", "Sun: shipped ASTM E-490 table", kind=IMPLEMENTATION)
+def impl_sun_e490_table():
     from dustrt.sun import solar_irradiance, solar_table
 
-    # ASTM E-490-00a (AM0): shipped 199.5-1100 nm rows integrate to 1014.18 W m-2 (trapezoid;
-    # CHECK_VALUES.md, flag a); sample values in W m-2 nm-1.
+    # dustrt's solar spectrum IS the ASTM E-490-00a table (rows 199.5-1100 nm), so these rows check
+    # the shipped data and its lookup, not dustrt against an outside result. The published total
+    # of the full E-490 table (1366.1 W m-2) cannot be compared: the shipped rows stop at 1100 nm.
     src = "ASTM E-490-00a (2000) AM0 table"
     wl, f = solar_table()
-    rows = [printed("integral 199.5-1100 nm [W m-2]", src, "1014.18", np.trapezoid(f, wl))]
+    rows = [printed("implementation check: integral of the shipped table rows 199.5-1100 nm (trapezoid) [W m-2]",
+                    src + " (published table); the full table's published total is 1366.1 W m-2", "1014.18",
+                    np.trapezoid(f, wl), COMPUTED_TABLE,
+                    basis="printed precision of the integral (2 decimals) computed from the published table")]
     for w, v in (("399.5", "1.663"), ("500.5", "1.857"), ("599.5", "1.774"), ("799", "1.135")):
-        rows.append(printed(f"F({w} nm) [W m-2 nm-1]", src, v, solar_irradiance([float(w)])[0]))
-    # 1/d^2 (analytic)
-    ratio = solar_irradiance([550.0], distance_au=2.0)[0] / solar_irradiance([550.0])[0]
-    rows.append(compare("F(2 au)/F(1 au)", "inverse-square law", 0.25, ratio, 1e-14, "rel", ANALYTIC))
+        rows.append(printed(f"F({w} nm), shipped table vs published value [W m-2 nm-1]", src, v,
+                            solar_irradiance([float(w)])[0]))
     return rows
 
 
 # --------------------------------------------------------------------------- line of sight
 
-CHAPMAN = "Chapman 1931, Proc. Phys. Soc. 43, 483: N = 2 n0 e^(-h/H) H X e^X K1(X)"
+CHAPMAN = ("computed from N = 2 n0 e^(-h/H) H X e^X K1(X), X = (R+h)/H (grazing Chapman function; "
+           "Chapman 1931, Proc. Phys. Soc. 43, 483)")
 
 
 def _chapman_column_cm2(n0, scale_height_km, tangent_altitude_km):
-    """Exact full tangent column of n0 exp(-h/H) (grazing Chapman function, CHECK_VALUES.md)."""
+    """Exact full tangent column of n0 exp(-h/H) (grazing Chapman function Ch(X, 90°) = X e^X K1(X))."""
     from scipy.special import k1e
 
     x = (R_MOON_KM + tangent_altitude_km) / scale_height_km
@@ -386,7 +452,7 @@ def los_chapman_tangent_altitudes():
     for h_t in (0.5, 20.0, 60.0):
         lit, _ = _grazing_column(10.0, h_t)
         rows.append(compare(f"tangent column, H=10 km, h_t={h_t:g} km [cm-2]", CHAPMAN,
-                            _chapman_column_cm2(1.0, 10.0, h_t), lit, 1e-4, "rel", ANALYTIC))
+                            _chapman_column_cm2(1.0, 10.0, h_t), lit, 1e-4, "rel", ANALYTIC, basis=RTOL))
     return rows
 
 
@@ -425,21 +491,28 @@ def los_chapman_scale_heights():
     for h in SCALE_HEIGHTS_ROWS:
         lit, _ = _grazing_column(h, 1e-3)
         rows.append(compare(f"tangent column, H={h:g} km, h_t=1 m [cm-2]", CHAPMAN,
-                            _chapman_column_cm2(1.0, h, 1e-3), lit, 1e-4, "rel", ANALYTIC))
+                            _chapman_column_cm2(1.0, h, 1e-3), lit, 1e-4, "rel", ANALYTIC, basis=RTOL))
     return rows
 
 
 @check("los_sqrt_2pi_rH_error", "Line of sight")
 def los_sqrt_2pi_rH_error():
-    # The approximation sqrt(2 pi r_t H) is low by 0.215 % (H = 10 km) and 2.08 % (H = 100 km) at
-    # h_t = 0 (CHECK_VALUES.md, computed, flag a; Chamberlain & Hunten 1987 ch. 1 recalled, flag b).
-    # dustrt at rtol 1e-6; tolerance half a unit of the printed percentage.
-    src = "Chamberlain & Hunten 1987, Theory of Planetary Atmospheres, ch. 1; values computed in CHECK_VALUES.md"
+    # How much the common approximation sqrt(2 pi r_t H) underestimates the grazing column:
+    # reference 100 (1 - approx / exact) computed from the Chapman closed form, dustrt's value
+    # 100 (1 - approx / dustrt column) with the integrator at rtol 1e-6. A relative column error
+    # delta moves the percentage by 100 (approx/column) delta < 100 delta: tolerance 1e-4 (abs, in %).
+    src = ("computed from 100 (1 - sqrt(2 pi r_t H) / N), N = 2 n0 H X e^X K1(X) (Chapman 1931, Proc. Phys. "
+           "Soc. 43, 483); the approximation's ~3/(8X) low bias: Chamberlain & Hunten 1987, Theory of "
+           "Planetary Atmospheres, ch. 1 (recalled from memory, not used as reference)")
+    rtol = 1e-6
     rows = []
-    for h, pct in ((10.0, "0.215"), (100.0, "2.08")):
-        lit, _ = _grazing_column(h, 1e-3, rtol=1e-6)
+    for h in (10.0, 100.0):
+        lit, _ = _grazing_column(h, 1e-3, rtol=rtol)
         approx = math.exp(-1e-3 / h) * math.sqrt(2 * math.pi * (R_MOON_KM + 1e-3) * h) * KM_TO_CM
-        rows.append(printed(f"sqrt(2 pi r H) low by [%], H={h:g} km", src, pct, 100 * (1 - approx / lit)))
+        exact = _chapman_column_cm2(1.0, h, 1e-3)
+        rows.append(compare(f"sqrt(2 pi r H) low by [%], H={h:g} km, h_t=1 m", src, 100 * (1 - approx / exact),
+                            100 * (1 - approx / lit), 100 * rtol, "abs", ANALYTIC,
+                            basis="integrator's requested relative_tolerance 1e-6, propagated to the percentage"))
     return rows
 
 
@@ -471,8 +544,9 @@ def los_uniform_shell_chord():
     for k, look in enumerate(looks):
         chord = _chord_in_ball_km(obs, look, R_MOON_KM + 80.0) - _chord_in_ball_km(obs, look, R_MOON_KM + 20.0)
         rows.append(compare(f"shell 20-80 km column, h_t={h_t[k]:g} km, az={az[k]:g} deg [cm-2]",
-                            "analytic chord length (sphere-line intersection)", n * chord * KM_TO_CM,
-                            res.column_cm2[0, k], 1e-4, "rel", ANALYTIC))
+                            "computed from the chord lengths of the line through the two spheres R+20, R+80 km",
+                            n * chord * KM_TO_CM,
+                            res.column_cm2[0, k], 1e-4, "rel", ANALYTIC, basis=RTOL))
     return rows
 
 
@@ -483,7 +557,7 @@ def los_shadow_shell():
     from dustrt.los import integrate_columns
 
     # Equatorial rays through the uniform shell [R+20, R+80] crossing the cylindrical shadow
-    # (x < 0, |y| < R; DESIGN.md): the sunlit column is n x (shell length - dark length), all
+    # (x < 0, |y| < R; docs/conventions.md): the sunlit column is n x (shell length - dark length), all
     # analytic. Tolerance: requested relative_tolerance 1e-4 (absolute 1e-4 x total column where
     # the sunlit reference is 0).
     n = 1.3
@@ -512,12 +586,13 @@ def los_shadow_shell():
         ref = n * (shell_len - dark) * KM_TO_CM
         got = float(res.sunlit_column_cm2[0, 0])
         label = f"sunlit shell column, t={t_h:g} h, az={az:g} deg, dark {dark / shell_len:.0%}"
-        src = "analytic: shell chord minus cylindrical-shadow interval (DESIGN.md geometry)"
+        src = ("computed from the shell chord minus the cylindrical-shadow interval (shadow of a point Sun as "
+               "defined in docs/conventions.md)")
         if ref > 0:
-            rows.append(compare(label + " [cm-2]", src, ref, got, 1e-4, "rel", ANALYTIC))
+            rows.append(compare(label + " [cm-2]", src, ref, got, 1e-4, "rel", ANALYTIC, basis=RTOL))
         else:
             rows.append(compare(label + " / total column", src, 0.0, got / float(res.column_cm2[0, 0]), 1e-4,
-                                "abs", ANALYTIC))
+                                "abs", ANALYTIC, basis=RTOL + ", relative to the total column"))
     return rows
 
 
@@ -566,12 +641,18 @@ def _fig_zodi(out_dir: Path) -> Path:
     return _savefig(fig, out_dir / "zodi_table17.png")
 
 
-@check("zodi_table17_nodes", "Zodiacal light", figure=_fig_zodi)
-def zodi_table17_nodes():
+ZODI_IMPL = "Zodiacal light: shipped Leinert et al. 1998 table and coded laws"
+
+
+@check("impl_zodi_table17_nodes", ZODI_IMPL, figure=_fig_zodi, kind=IMPLEMENTATION)
+def impl_zodi_table17_nodes():
     from dustrt import zodi
 
+    # dustrt's 500-nm zodiacal light IS Table 17 (shipped as package data), interpolated: at the nodes
+    # it must return the printed values. This checks the shipped transcription and the
+    # interpolation's exactness at nodes (an implementation check, not an external validation).
     # Table 17 values in 1e-8 W m-2 sr-1 µm-1 = 1e-11 W m-2 sr-1 nm-1; tolerance half a unit of the
-    # printed integer (relative 0.5/value).
+    # printed integer.
     rows = []
     for dl, b, v in TABLE17_NODES:
         got = zodi.zodiacal_brightness_500nm(dl, b) / 1e-11
@@ -584,22 +665,44 @@ def zodi_table17_nodes():
     for sl, sb in ((1, 1), (-1, 1), (1, -1), (-1, -1)):
         got = zodi.zodiacal_brightness_500nm(sl * dlon[i], sb * lat[j]) / 1e-11
         worst = max(worst, float(np.max(np.abs(got / values[i, j] - 1))))
-    rows.append(Row(f"all {i.size} finite nodes x 4 sign folds, worst model/node - 1", LEINERT.format("Table 17"),
-                    "0", worst, worst, "rel", 1e-9, worst <= 1e-9, PUBLISHED))
+    rows.append(Row(f"all {i.size} finite nodes of the shipped table x 4 sign folds, worst model/node - 1",
+                    LEINERT.format("Table 17") + " (package data dustrt/data/zodiacal_leinert1998_table17.csv)",
+                    "0", worst, worst, "rel", 1e-9, worst <= 1e-9, PUBLISHED,
+                    "round-off (interpolation of ln Z is exact at nodes)"))
     return rows
 
 
-@check("zodi_colour_law", "Zodiacal light")
-def zodi_colour_law():
+@check("impl_zodi_colour_law", ZODI_IMPL, kind=IMPLEMENTATION)
+def impl_zodi_colour_law():
     from dustrt import zodi
 
-    # Leinert et al. (1998) Eq. 22 spot values printed to 3 decimals (CHECK_VALUES.md)
+    # dustrt codes Leinert et al. (1998) Eq. 22; the spot values were computed from that equation
+    # and rounded to 3 decimals, so this checks the transcription of the formula (which slope goes
+    # with which side of 500 nm, the interpolation in eps), not the colour against observations.
+    src = ("computed from " + LEINERT.format("Eq. 22") + ": f_co = 1 + b log10(lambda/500 nm); b = 1.2/0.8 "
+           "(blue/red of 500 nm) for eps <= 30 deg, 0.9/0.6 for eps >= 90 deg, linear in eps between")
     rows = []
     for eps, wl, v in ((90.0, 300.0, "0.800"), (90.0, 400.0, "0.913"), (90.0, 700.0, "1.088"),
                        (90.0, 850.0, "1.138"), (30.0, 300.0, "0.734"), (30.0, 850.0, "1.184")):
-        rows.append(printed(f"colour factor f_co, eps={eps:g} deg, {wl:g} nm", LEINERT.format("Eq. 22"), v,
-                            zodi.zodiacal_colour_correction(wl, eps)))
+        rows.append(printed(f"colour factor f_co, eps={eps:g} deg, {wl:g} nm", src, v,
+                            zodi.zodiacal_colour_correction(wl, eps), ANALYTIC,
+                            basis="precision of the 3-decimal values computed from Eq. 22"))
     return rows
+
+
+def _smoothed_e490(width_nm: int = 20):
+    """E-490 on a 1-nm grid, boxcar-averaged over ``width_nm`` (as tests/test_zodi.py does)."""
+    from dustrt.sun import solar_table
+
+    wl, f = solar_table()
+    grid = np.arange(wl[0], wl[-1], 1.0)
+    fine = np.interp(grid, wl, f)
+    half = width_nm // 2
+    smooth = np.convolve(fine, np.ones(2 * half + 1) / (2 * half + 1), mode="same")
+    return grid[half:-half], smooth[half:-half]
+
+
+TABLE19 = ((300.0, "5.3e-7"), (400.0, "2.2e-6"), (500.0, "2.6e-6"), (700.0, "2.0e-6"), (900.0, "1.3e-6"))
 
 
 @check("zodi_spectrum_table19", "Zodiacal light")
@@ -607,39 +710,93 @@ def zodi_spectrum_table19():
     from dustrt import zodi
     from dustrt.sun import solar_table
 
-    # Leinert et al. (1998) Table 19 (eps = 90 deg, ecliptic), W m-2 sr-1 µm-1. Tolerance 15 %
-    # (as in tests/test_zodi.py): 2 printed digits (±2-4 %) and a coarser solar spectrum than the
-    # 1-nm E-490 used here (single samples scatter 5-10 % across absorption lines).
+    # Leinert et al. (1998) Table 19 (eps = 90 deg, ecliptic), W m-2 sr-1 µm-1, printed to 2 digits
+    # (±2-4 %). Table 19 was built with a different, coarser solar spectrum than the 1-nm E-490
+    # dustrt uses, so this is a model-vs-model comparison whose 15 % tolerance is common practice
+    # for a solar-spectrum resolution difference, NOT the printed precision. The pass/fail value is
+    # dustrt as it runs (1-nm E-490); the difference with the E-490 boxcar-averaged over 20 nm
+    # (as tests/test_zodi.py does at 300 and 900 nm) is reported in the quantity column. At 400 nm
+    # the smoothed variant differs by about -21 %, more than 15 %: the 390-410 nm window holds the
+    # deep Ca II H and K lines, so the comparison there is limited by the spectral resolution.
     wl, f = solar_table()
-    z = zodi.zodiacal_radiance([0.0, 1.0, 0.0], [400.0, 500.0, 700.0], wl, f) * 1e3  # per nm -> per µm
-    return [compare(f"Z({w:g} nm), eps=90 deg [W m-2 sr-1 um-1]", LEINERT.format("Table 19"), ref, got, 0.15,
-                    "rel", PUBLISHED)
-            for w, ref, got in zip((400, 500, 700), ("2.2e-6", "2.6e-6", "2.0e-6"), z)]
+    swl, sf = _smoothed_e490(20)
+    w = np.array([t[0] for t in TABLE19])
+    z = zodi.zodiacal_radiance([0.0, 1.0, 0.0], w, wl, f) * 1e3  # per nm -> per µm
+    zs = zodi.zodiacal_radiance([0.0, 1.0, 0.0], w, swl, sf) * 1e3
+    basis = ("common practice: solar-spectrum resolution difference (model vs model); "
+             "printed precision alone would be ±2-4 %")
+    rows = []
+    for (wave, ref), got, got_s in zip(TABLE19, z, zs):
+        rows.append(compare(f"Z({wave:g} nm), eps=90 deg, 1-nm E-490 [W m-2 sr-1 um-1] "
+                            f"(with E-490 20-nm boxcar: {got_s:.3g}, {got_s / float(ref) - 1:+.1%})",
+                            LEINERT.format("Table 19"), ref, got, 0.15, "rel", PUBLISHED, basis=basis))
+    return rows
 
 
-@check("zodi_distance_and_inner_slope", "Zodiacal light")
-def zodi_distance_and_inner_slope():
+@check("impl_zodi_inner_law", ZODI_IMPL, kind=IMPLEMENTATION)
+def impl_zodi_inner_law():
     from dustrt import zodi
 
-    # Leinert, Richter, Pitz & Planck (1981), A&A 103, 177: I ∝ r^-2.3 (model rule: exact up to
-    # round-off). Hahn, Zook, Cooper & Sunkara (2002), Icarus 158: Z ∝ eps^(-2.45 ± 0.05) for
-    # eps ≈ 3-30 deg: tolerance the published ±0.05.
-    ratio = zodi.zodiacal_brightness_500nm(90.0, 0.0, heliocentric_distance_au=0.5) / \
-        zodi.zodiacal_brightness_500nm(90.0, 0.0)
+    # Hahn, Zook, Cooper & Sunkara (2002), Icarus 158, 360: Z ∝ eps^(-2.45 ± 0.05) for eps ≈ 3-30 deg.
+    # dustrt codes the exponent -2.45 where Table 17 has no entries, anchored to the table, so
+    # (1) it must be continuous with Table 17 at the junction, and (2) its log-slope measured
+    # numerically between two elongations inside the untabulated region must lie within the
+    # published ±0.05 of -2.45. Both check the implementation, not the law itself.
+    hahn = "Hahn, Zook, Cooper & Sunkara 2002, Icarus 158, 360: Z ∝ eps^(-2.45 ± 0.05), eps ≈ 3-30 deg"
+    rows = []
+    # (1) junctions: ecliptic (Table 17 starts at dlon = 15 deg for beta = 0, 5) and the meridian
+    # through the Sun (dlon = 0: the table starts at beta = 15 deg). Step 2 delta across the edge;
+    # a continuous Z with |d ln Z / d ln eps| <= 3 (steepest Table 17 node-to-node slope within 40
+    # deg of the Sun: -2.64) changes by at most 3 x 2 delta / eps.
+    delta = 1e-8
+    for label, inside, outside in (("ecliptic, eps=15 deg (dlon=15, beta=0)", (15.0 + delta, 0.0),
+                                    (15.0 - delta, 0.0)),
+                                   ("dlon=0, eps=15 deg (beta=15)", (0.0, 15.0 + delta), (0.0, 15.0 - delta))):
+        z_in = zodi.zodiacal_brightness_500nm(*inside)
+        z_out = zodi.zodiacal_brightness_500nm(*outside)
+        rows.append(compare(f"continuity at the Table 17 edge, {label}: power law vs table side",
+                            LEINERT.format("Table 17") + " (table side) and " + hahn, z_in, z_out,
+                            3 * 2 * delta / 15.0, "rel", COMPUTED_TABLE,
+                            basis="analytic: smooth Z with |slope| <= 3 changes by <= 3 x 2 delta/eps "
+                                  "across a 2e-8 deg step"))
+    # (2) measured log-slope, eps = 3 -> 12 deg, inside the untabulated region on both rays
     eps = np.array([3.0, 12.0])
-    z = zodi.zodiacal_brightness_500nm(eps, 0.0)
-    slope = float(np.log(z[1] / z[0]) / np.log(eps[1] / eps[0]))
-    return [compare("Z(0.5 au)/Z(1 au), eps=90 deg", "Leinert et al. 1981, A&A 103, 177: I ∝ r^-2.3",
-                    0.5**-2.3, ratio, 1e-12, "rel", PUBLISHED),
-            compare("log slope dlnZ/dln(eps), eps=3-12 deg, ecliptic", "Hahn et al. 2002, Icarus 158: -2.45 ± 0.05",
-                    -2.45, slope, 0.05, "abs", PUBLISHED)]
+    for label, z in (("ecliptic", zodi.zodiacal_brightness_500nm(eps, 0.0)),
+                     ("dlon=0 (towards ecliptic north)", zodi.zodiacal_brightness_500nm(0.0, eps))):
+        slope = float(np.log(z[1] / z[0]) / np.log(eps[1] / eps[0]))
+        rows.append(compare(f"measured d lnZ / d ln(eps), eps=3-12 deg, {label}", hahn, -2.45, slope, 0.05,
+                            "abs", PUBLISHED, basis="published uncertainty ±0.05 (Hahn et al. 2002)"))
+    return rows
+
+
+@check("impl_zodi_heliocentric_law", ZODI_IMPL, kind=IMPLEMENTATION)
+def impl_zodi_heliocentric_law():
+    from dustrt import zodi
+
+    # Leinert, Richter, Pitz & Planck (1981), A&A 103, 177: I ∝ r^(-2.3 ± 0.05). dustrt codes the
+    # exponent -2.3; the log-slope measured from the model at two distances must lie within the
+    # published ±0.05 (an implementation check: the code against the law it was built from).
+    src = "Leinert, Richter, Pitz & Planck 1981, A&A 103, 177: I ∝ r^(-2.3 ± 0.05)"
+    z1 = zodi.zodiacal_brightness_500nm(90.0, 0.0)
+    rows = []
+    for r in (0.5, 2.0):
+        zr = zodi.zodiacal_brightness_500nm(90.0, 0.0, heliocentric_distance_au=r)
+        rows.append(compare(f"measured d lnZ / d ln r between 1 and {r:g} au, eps=90 deg", src, -2.3,
+                            float(np.log(zr / z1) / np.log(r)), 0.05, "abs", PUBLISHED,
+                            basis="published uncertainty ±0.05 (Leinert et al. 1981)"))
+    return rows
 
 
 # --------------------------------------------------------------------------- statistics
 
-FC98 = ("Feldman & Cousins 1998, Phys. Rev. D 57, 3873, Table X (values computed with the paper's "
-        "construction; match to the printed table recalled)")
-TABLE_X = {  # x0 -> (90 % interval, 95 % interval, Bayes UL 90 %, 95 %); CHECK_VALUES.md
+FC98 = ("Feldman & Cousins 1998, Phys. Rev. D 57, 3873, Table X: reference computed with the paper's "
+        "construction (likelihood-ratio ordering); agreement with the printed Table X recalled from memory")
+BAYES_FLAT = ("computed from mu_up = x + sigma Phi^-1[1 - (1-CL) Phi(x/sigma)] (closed form of the "
+              "flat-prior posterior on mu >= 0)")
+# x0 -> (90 % interval, 95 % interval, flat-prior Bayes UL 90 %, 95 %). The intervals were computed
+# with Feldman & Cousins' construction; their match to the printed Table X is recalled, not re-read.
+# The Bayesian limits are NOT from Table X: they were computed from the closed form above.
+TABLE_X = {
     -2.0: (("0.00", "0.40"), ("0.00", "0.62"), "0.837", "1.052"),
     -1.0: (("0.00", "0.81"), ("0.00", "1.10"), "1.148", "1.412"),
     0.0: (("0.00", "1.64"), ("0.00", "1.96"), "1.645", "1.960"),
@@ -662,21 +819,24 @@ def stats_feldman_cousins_table_x():
             ref = f"[{lo_s}, {up_s}]"
             val = f"[{lo:.4f}, {up:.4f}]"
             d = max(d_lo, d_up)
-            rows.append(Row(f"FC {cl:.0%} interval, x0={x0:g}, sigma=1", FC98, ref, val, d, "abs", 0.005,
-                            d <= 0.005, MEMORY))
+            rows.append(Row(f"FC {cl:.0%} interval, x0={x0:g}, sigma=1 (match to printed Table X recalled "
+                            "from memory)", FC98, ref, val, d, "abs", 0.005, d <= 0.005, MEMORY,
+                            "printed precision of Table X (half a unit of 2 decimals)"))
     return rows
 
 
-@check("stats_bayes_flat_prior_table_x", "Statistics")
-def stats_bayes_flat_prior_table_x():
+@check("impl_stats_bayes_flat_prior", "Statistics: flat-prior Bayesian upper limit", kind=IMPLEMENTATION)
+def impl_stats_bayes_flat_prior():
     from dustrt import statistics as st
 
-    # Flat-prior Bayesian upper limits, [FC98] Table X, 3 decimals.
+    # dustrt evaluates this same closed form (in a rearranged, overflow-safe way), so the rows
+    # check that evaluation against values computed from the formula and rounded to 3 decimals.
     rows = []
     for x0, (_i90, _i95, b90, b95) in TABLE_X.items():
         for cl, ref in ((0.90, b90), (0.95, b95)):
-            rows.append(printed(f"flat-prior Bayes UL {cl:.0%}, x0={x0:g}, sigma=1", FC98, ref,
-                                st.bayesian_flat_prior_upper_limit(x0, 1.0, cl), MEMORY))
+            rows.append(printed(f"flat-prior Bayes UL {cl:.0%}, x0={x0:g}, sigma=1", BAYES_FLAT, ref,
+                                st.bayesian_flat_prior_upper_limit(x0, 1.0, cl), ANALYTIC,
+                                basis="precision of the 3-decimal values computed from the closed form"))
     return rows
 
 
@@ -709,7 +869,8 @@ def _fig_fc(out_dir: Path) -> Path:
         pts = sorted(TABLE_X)
         k = 0 if cl == 0.90 else 1
         ax.plot(pts, [float(TABLE_X[p][k][0]) for p in pts], f"C{i}v", ms=5)
-        ax.plot(pts, [float(TABLE_X[p][k][1]) for p in pts], f"C{i}^", ms=5, label=f"Table X {cl:.0%} (FC98)")
+        ax.plot(pts, [float(TABLE_X[p][k][1]) for p in pts], f"C{i}^", ms=5,
+                label=f"FC construction {cl:.0%} (Table X, match recalled)")
     ax.set_xlabel("measured x / sigma")
     ax.set_ylabel("mu / sigma")
     ax.set_title("Feldman-Cousins intervals (Gaussian, mu >= 0) and coverage")
@@ -738,7 +899,8 @@ def stats_feldman_cousins_coverage():
         for mu in COVERAGE_MU:
             rows.append(compare(f"FC coverage, CL {cl:.0%}, true mu={mu:g} sigma ({COVERAGE_TRIALS} trials)",
                                 "Feldman & Cousins 1998, Phys. Rev. D 57, 3873 (exact coverage by construction)",
-                                cl, _fc_coverage(mu, cl), tol, "abs", ANALYTIC))
+                                cl, _fc_coverage(mu, cl), tol, "abs", ANALYTIC,
+                                basis="4 binomial standard errors, sqrt(CL(1-CL)/n), fixed seed"))
     return rows
 
 
@@ -764,10 +926,10 @@ def instrument_photon_count():
     # S = L A Omega dlam t T / (hc/lambda), h and c exact in the 2019 SI (CODATA 2018).
     by_hand = 1e-3 * 1e-3 * 1e-4 * 1.0 * 1.0 * 0.5 / (constants.h * constants.c / 500e-9)
     r = expected_counts(np.array([1e-3]), [500.0], _instrument(frames=2, integration_time_s=0.5, throughput=0.5))
-    return [compare("signal electrons, worked example", "count equation with CODATA 2018 h, c", by_hand,
-                    r.signal_e[0], 1e-12, "rel", ANALYTIC),
+    return [compare("signal electrons, worked example", "computed from S = L A Omega dlam t T lambda/(hc), "
+                    "CODATA 2018 h, c", by_hand, r.signal_e[0], 1e-12, "rel", ANALYTIC, basis=ROUND_OFF),
             compare("photon noise = sqrt(S), worked example", "Poisson statistics", math.sqrt(by_hand),
-                    r.noise_e[0], 1e-12, "rel", ANALYTIC)]
+                    r.noise_e[0], 1e-12, "rel", ANALYTIC, basis=ROUND_OFF)]
 
 
 def _fig_noise(out_dir: Path) -> Path:
@@ -802,7 +964,7 @@ def instrument_noise_time_scaling():
     long = expected_counts(rad, wl, _instrument(integration_time_s=4.0))
     rows = [compare("SNR(4t)/SNR(t), photon noise only (worst of 5 bins)", "Poisson statistics: SNR = sqrt(S) ∝ sqrt(t)",
                     2.0, float((long.snr / short.snr)[np.argmax(np.abs(long.snr / short.snr - 2))]), 1e-12, "rel",
-                    PRACTICE)]
+                    PRACTICE, basis=ROUND_OFF)]
     # read-noise limit: SNR = S/sqrt(S + R^2) -> ∝ t; ratio for 2t within 2 S/R^2 of 2 (analytic bound)
     inst = _instrument(integration_time_s=1e-3, read_noise_e=100.0)
     one = expected_counts(np.array([1e-8]), [500.0], inst)
@@ -810,7 +972,8 @@ def instrument_noise_time_scaling():
     s = float(one.signal_e[0])
     rows.append(compare(f"SNR(2t)/SNR(t), read-noise limited (S={s:.2f} e-, R=100 e-)",
                         "SNR = S/sqrt(S+R^2) -> ∝ t; bound 2S/R^2", 2.0, two.snr[0] / one.snr[0],
-                        2 * s / 100.0**2, "abs", PRACTICE))
+                        2 * s / 100.0**2, "abs", PRACTICE,
+                        basis="analytic: departure from 2 is S/R^2 to first order; bound 2S/R^2"))
     return rows
 
 
@@ -906,7 +1069,8 @@ def sweep_rayleigh_radius_scaling():
         x = 2 * np.pi * a / (_SHORTEST_NM * 1e-3)
         rows.append(compare(f"n_min({a:g} um)/n_min({RAYLEIGH_RADII[0]:g} um)",
                             "Bohren & Huffman 1983, ch. 5: C_sca ∝ a^6; bound 10x^2",
-                            (a / RAYLEIGH_RADII[0]) ** -6, v / n[0], 10 * x**2, "rel", ANALYTIC))
+                            (a / RAYLEIGH_RADII[0]) ** -6, v / n[0], 10 * x**2, "rel", ANALYTIC,
+                            basis="neglected term O(x^2) with factor-10 margin: 10x^2 (common practice)"))
     return rows
 
 
@@ -916,7 +1080,7 @@ def sweep_sqrt_t_scaling():
     # expected-noise model up to round-off).
     r = _min_detectable(0.05, 40.0) / _min_detectable(0.05, 10.0)
     return [compare("n_min(40 s)/n_min(10 s), a=0.05 um", "Poisson statistics: sigma ∝ sqrt(t)", 0.5, r, 1e-9,
-                    "rel", PRACTICE)]
+                    "rel", PRACTICE, basis="round-off (exact scaling of the expected-noise model)")]
 
 
 def run_all(names=None):
