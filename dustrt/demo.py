@@ -22,7 +22,8 @@ OUTPUTS = {
     "optics.png": "cross sections and phase functions",
     "limb.nc": "limb radiance of the hypothesised dust, zodiacal light and columns per line of sight",
     "limb.png": "limb profiles and spectra",
-    "observation.nc": "simulated calibrated observation of the dusty sky (expected values and one noisy realisation)",
+    "observation.nc": "simulated calibrated observation of the hypothesised dusty sky (expected values and one noisy "
+                      "realisation)",
     "separation.nc": "dust/zodiacal separation of that observation, per hypothesis and line of sight",
     "separation.png": "observed spectrum, fitted components and residuals",
     "quiet_sky_observation.nc": "simulated observation of the same sky without dust (a non-detection)",
@@ -98,7 +99,7 @@ def run_demo(out_dir, *, overwrite: bool = False, progress: bool = True, say=pri
     limb = limb_dataset(sc, progress=progress)
     write(limb, "limb.nc", "limb_figure")
 
-    step(3, "simulated observation and dust/zodiacal separation")
+    step(3, "simulated observation of the hypothesised sky and dust/zodiacal separation")
     write(observation_dataset(sc, realizations=1, seed=SEED, progress=progress), "observation.nc")
     separation = separate_file(out / "observation.nc", sc, progress=progress)
     write(separation, "separation.nc", "separation_figure")
@@ -114,15 +115,18 @@ def run_demo(out_dir, *, overwrite: bool = False, progress: bool = True, say=pri
     io.save_figure(plots.sweep_figure(sweep_ds), out / "sweep.png")
 
     step(6, "summary")
-    headlines = headline_numbers(limb, separation, limits, sweep_ds)
+    headlines = headline_numbers(sc, limb, separation, limits, sweep_ds)
     text = summary_text(sc, out, headlines, time.perf_counter() - t0)
     io.write_text(text, out / "summary.txt")
     return headlines
 
 
-def headline_numbers(limb, separation, limits, sweep_ds) -> dict:
+def headline_numbers(scenario, limb, separation, limits, sweep_ds) -> dict:
     """The numbers a reader looks for first (see :func:`summary_text`)."""
-    h = {}
+    from dustrt.density import reference_density_cm3
+
+    h = {"hypothesis": {p.name: (p.size.characteristic_radius_um, reference_density_cm3(p.density))
+                        for p in scenario.populations}}
     los = int(np.argmin(np.abs(limb["tangent_altitude_km"].values - HEADLINE_ALTITUDE_KM)))
     at = dict(line_of_sight=los)
     wl = dict(wavelength_nm=HEADLINE_WAVELENGTH_NM)
@@ -132,15 +136,21 @@ def headline_numbers(limb, separation, limits, sweep_ds) -> dict:
     h["zodiacal_radiance"] = float(limb["zodiacal_radiance"].isel(at).interp(wl))
     h["population_radiance"] = {str(p): float(limb["population_radiance"].sel(population=p).isel(at).interp(wl))
                                 for p in limb["population"].values}
-    h["separation_significance"] = {
-        str(p): float(separation["dust_excess_significance"].sel(population=p).isel(observation=0, **at))
-        for p in separation["population"].values}
-    h["upper_limit_cm3"] = {}
+    h["separation"] = {}
+    for p in separation["population"].values:
+        sel = separation.sel(population=p).isel(observation=0, **at)
+        h["separation"][str(p)] = (float(sel["dust_excess_significance"]), float(sel["dust_amplitude"]),
+                                   float(sel["dust_amplitude_uncertainty"]),
+                                   float(separation["median_reduced_chi2"].sel(population=p)))
+    h["confidence"] = float(limits.attrs["confidence"])
+    h["upper_limit_cm3"], h["headline_limit"] = {}, {}
     for p in limits["population"].values:
         sel = limits.sel(population=p)
-        h["upper_limit_cm3"][str(p)] = [(float(r), float(u), bool(ok)) for r, u, ok in zip(
+        rows = [(float(r), float(u), bool(ok)) for r, u, ok in zip(
             sel["radius_um"].values, sel["density_upper_limit_cm3"].values, sel["fit_reliable"].values)]
-    h["confidence"] = float(limits.attrs["confidence"])
+        h["upper_limit_cm3"][str(p)] = rows
+        own = h["hypothesis"][str(p)][0]  # the swept radius closest (in log) to the hypothesis's own
+        h["headline_limit"][str(p)] = min(rows, key=lambda row: abs(np.log(row[0] / own)))
     h["best_radius_um"] = {}
     for p in sweep_ds["population"].values:
         vol = sweep_ds["minimum_detectable_volume_density_um3_cm3"].sel(population=p)
@@ -159,11 +169,15 @@ def summary_text(scenario, out: Path, h: dict, seconds: float) -> str:
         "DEMO VALUES: an invented orbiter with an invented spectrometer, not a real mission or measurement.",
         "Model predictions for science planning, not environmental or safety specifications.",
         f"scenario: {scenario.source}",
-        f"output folder: {out.resolve()}  ({seconds:.1f} s)",
+        f"output folder: {out.resolve()}",
+        f"run time: {seconds:.1f} s",
         "",
         "Files",
     ]
     lines += [f"  {name:<26} {what}" for name, what in OUTPUTS.items()]
+    lines += ["", "Hypothesis (demo values)"]
+    lines += [f"  {p:<14} radius {r:.3g} um, density normalisation {n:.3g} cm-3"
+              for p, (r, n) in h["hypothesis"].items()]
     lines += [
         "",
         f"Limb radiance at {h['tangent_altitude_km']:g} km tangent altitude, {h['wavelength_nm']:g} nm "
@@ -173,11 +187,16 @@ def summary_text(scenario, out: Path, h: dict, seconds: float) -> str:
         f"  dust, all populations          {h['dust_radiance']:.3e}",
     ]
     lines += [f"  dust population {p:<14} {v:.3e}" for p, v in h["population_radiance"].items()]
-    lines += ["", f"Separation of the simulated dusty observation at {h['tangent_altitude_km']:g} km "
-                  "(dust excess significance, one hypothesis at a time)"]
-    lines += [f"  {p:<30} {s:.1f} sigma" for p, s in h["separation_significance"].items()]
-    lines += ["", f"Upper limits from the simulated non-detection ({h['confidence']:.0%} CL, all lines of sight)",
-              "  population     grain radius [um]   density upper limit [cm-3]"]
+    lines += ["", f"Separation of the simulated observation of that sky at {h['tangent_altitude_km']:g} km "
+                  "(one noisy realisation)"]
+    for p, (sig, amp, err, chi2) in h["separation"].items():
+        lines.append(f"  {p:<14} dust excess {sig:.1f} sigma; amplitude {amp:.2f} +- {err:.2f} of the hypothesis; "
+                     f"median reduced chi-square {chi2:.2f}")
+    lines += ["", f"Upper limit from the simulated non-detection ({h['confidence']:.0%} CL, all lines of sight)"]
+    for p, (r, u, ok) in h["headline_limit"].items():
+        lines.append(f"  {p:<14} {u:.3g} cm-3 at radius {r:.3g} um (hypothesis {h['hypothesis'][p][1]:.3g} cm-3)"
+                     + ("" if ok else "   (model does not fit: unreliable)"))
+    lines += ["  versus grain radius:", "  population     grain radius [um]   density upper limit [cm-3]"]
     for p, rows in h["upper_limit_cm3"].items():
         for r, u, ok in rows:
             lines.append(f"  {p:<14} {r:>17.3g}   {u:.3g}" + ("" if ok else "   (model does not fit: unreliable)"))
@@ -185,7 +204,8 @@ def summary_text(scenario, out: Path, h: dict, seconds: float) -> str:
               "  population     most detectable radius [um]   grain volume density [um3 cm-3]   density [cm-3]"]
     for p, (r, vol, n) in h["best_radius_um"].items():
         lines.append(f"  {p:<14} {r:>27.3g}   {vol:>31.3g}   {n:.3g}")
-    lines += ["", "Variables and units of every file: docs/outputs.md in the repository."]
+    lines += ["  (most detectable: the smallest detectable grain volume, i.e. mass loading, over the swept radii)",
+              "", "Variables and units of every file: docs/outputs.md in the repository."]
     return "\n".join(lines) + "\n"
 
 

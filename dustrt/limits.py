@@ -92,25 +92,6 @@ def density_limits(fits, normalisation_cm3, confidence, method):
     return {k: np.array(v) for k, v in out.items()}
 
 
-def _check_fit_quality(chi2_nu, dof, source) -> bool:
-    """Warn (and return False) when many spectra are fit badly: the templates do not describe the data."""
-    from scipy.stats import chi2 as chi2_dist
-
-    ok = np.isfinite(chi2_nu) & (dof > 0)
-    if not ok.any():
-        return True
-    p = chi2_dist.sf(chi2_nu[ok] * dof[ok], dof[ok])
-    bad = float(np.mean(p < 1e-3))
-    if bad > 0.1:
-        from dustrt import warn
-
-        warn(f"{source}: {100 * bad:.0f} % of spectra have a chi-square p-value below 1e-3 (median reduced "
-             f"chi-square {np.median(chi2_nu[ok]):.3g}); the zodiacal + dust model does not describe the data, "
-             "so the limits are not reliable")
-        return False
-    return True
-
-
 def _with_radius(scenario, radius_um):
     """Scenario copy with every population's characteristic radius replaced."""
     import dataclasses
@@ -124,7 +105,8 @@ def limits_file(observation_path, scenario, method=None, progress=False):
     import xarray as xr
 
     import dustrt
-    from dustrt.separate import build_templates, check_bands, check_hypotheses, read_observation, separate
+    from dustrt.separate import (build_templates, check_bands, check_hypotheses, fit_quality, read_observation,
+                                 separate, warn_poor_fits)
 
     method = method or scenario.limits.method
     conf = scenario.limits.confidence
@@ -156,13 +138,14 @@ def limits_file(observation_path, scenario, method=None, progress=False):
         fits = separate(sc, spectra, templates)
         n0 = [reference_density_cm3(p.density) for p in sc.populations]
         res = density_limits(fits, n0, conf, method)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            res["reliable"] = np.array([_check_fit_quality(f.chi2 / np.where(f.dof > 0, f.dof, np.nan), f.dof,
-                                                           spectra.source) for f in fits])
+        res["reliable"], res["median_chi2"] = (np.array(v) for v in zip(*(fit_quality(f) for f in fits)))
         results.append(res)
     stack = {k: np.stack([r[k] for r in results], axis=1) for k in results[0]}  # (P, S, ...)
-    detect_sigma = scenario.sweep.detection_sigma if scenario.sweep is not None else 5.0
     names = [p.name for p in scenario.populations]
+    warn_poor_fits(spectra.source, [f"{names[i]} (radius {sc.populations[i].size.characteristic_radius_um:.3g} um)"
+                                    for i in range(len(names)) for sc in variants],
+                   stack["reliable"].ravel(), stack["median_chi2"].ravel(), "the limits")
+    detect_sigma = scenario.sweep.detection_sigma if scenario.sweep is not None else 5.0
     # (P, S): the swept radius, or each population's own characteristic radius
     radius = np.array([[sc.populations[i].size.characteristic_radius_um for sc in variants]
                        for i in range(len(scenario.populations))])

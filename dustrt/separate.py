@@ -403,6 +403,36 @@ def colour_ratio(radiance, solar_irradiance, wavelength_nm, blue_band, red_band,
         return band_mean(norm, wavelength_nm, blue_band, use) / band_mean(norm, wavelength_nm, red_band, use)
 
 
+def fit_quality(fit) -> tuple[bool, float]:
+    """(reliable, median reduced χ²) of one hypothesis's fits over all spectra.
+
+    Unreliable: more than 10 % of the spectra have a χ² p-value below 1e-3, i.e. the
+    zodiacal + dust model does not describe the data (common practice thresholds).
+    """
+    from scipy.stats import chi2 as chi2_dist
+
+    dof = fit.dof
+    ok = np.isfinite(fit.chi2) & (dof > 0)
+    if not ok.any():
+        return True, float("nan")
+    chi2_nu = fit.chi2[ok] / dof[ok]
+    bad = float(np.mean(chi2_dist.sf(fit.chi2[ok], dof[ok]) < 1e-3))
+    return bad <= 0.1, float(np.median(chi2_nu))
+
+
+def warn_poor_fits(source, labels, reliable, median_chi2, what: str) -> None:
+    """One warning naming every hypothesis whose fits do not describe the data."""
+    bad = [f"{lab} (median reduced chi-square {c:.3g})" for lab, ok, c in zip(labels, reliable, median_chi2)
+           if not ok]
+    if bad:
+        from dustrt import warn
+
+        warn(f"{source}: the zodiacal + dust model does not describe the data for {', '.join(bad)}: over 10 % "
+             f"of spectra have a chi-square p-value below 1e-3, so {what} for them are not reliable "
+             "(each hypothesis is fitted alone: another dust population, a zodiacal colour other than the "
+             "model's, or a calibration error all show up this way)")
+
+
 def separate_file(observation_path, scenario, progress=False):
     """Run the separation on a file and package the results as an xarray Dataset."""
     import xarray as xr
@@ -414,6 +444,9 @@ def separate_file(observation_path, scenario, progress=False):
     check_bands(scenario, spectra.wavelength_nm, spectra.source)
     templates = build_templates(scenario, spectra, progress=progress)
     fits = separate(scenario, spectra, templates)
+    quality = [fit_quality(f) for f in fits]
+    warn_poor_fits(spectra.source, [p.name for p in scenario.populations], [q[0] for q in quality],
+                   [q[1] for q in quality], "the dust amplitudes")
     sep = scenario.separation
     limb_view = ~templates.hits_surface[templates.ray_index]
     use = spectra.usable & fit_mask(scenario, spectra.wavelength_nm) & limb_view[..., None]
@@ -450,6 +483,11 @@ def separate_file(observation_path, scenario, progress=False):
             "observed_radiance": (("observation", "line_of_sight", "wavelength_nm"), spectra.radiance, {"units": RADIANCE_UNITS, "long_name": "observed radiance"}),
             "observed_uncertainty": (("observation", "line_of_sight", "wavelength_nm"), spectra.uncertainty, {"units": RADIANCE_UNITS, "long_name": "observed radiance uncertainty"}),
             "fit_mask": (("observation", "line_of_sight", "wavelength_nm"), use.astype(np.int8), {"units": "1", "long_name": "1 where the bin entered the fit"}),
+            "fit_reliable": ("population", np.array([q[0] for q in quality], dtype=np.int8),
+                             {"units": "1", "long_name": "0 where over 10 % of spectra have a chi-square p-value below "
+                              "1e-3 (the zodiacal + dust model does not describe the data)"}),
+            "median_reduced_chi2": ("population", np.array([q[1] for q in quality]),
+                                    {"units": "1", "long_name": "median reduced chi-square over all spectra"}),
             "reduced_chi2": (POL, np.stack([ft.chi2 / np.where(ft.dof > 0, ft.dof, np.nan) for ft in fits]), {"units": "1", "long_name": "reduced chi-square of the fit"}),
             # one bin selection for all colour ratios: usable data outside the masked windows
             # (the fit bands do not restrict the colour bands)
