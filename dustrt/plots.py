@@ -57,7 +57,7 @@ def limb_figure(ds):
                      label=f"zodiacal light {wl[j]:.0f} nm")
     ax1.set_xlabel("spectral radiance [W m⁻² sr⁻¹ nm⁻¹]")
     ax1.set_ylabel("tangent altitude [km]")
-    ax1.legend(fontsize=7, loc="lower left")  # radiance rises downward: that corner stays empty
+    ax1.legend(fontsize=7, loc="upper center", bbox_to_anchor=(0.5, -0.14), ncol=3)  # below: never on a curve
     for i in _pick(order, 4):
         k = order[i]
         ax2.semilogy(wl, ds["radiance"].values[k], label=f"h_t = {h[k]:.1f} km")
