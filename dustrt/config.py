@@ -689,6 +689,9 @@ def _size(st: _Table):
         raise st.error(None, str(exc)) from None
 
 
+#: Adjacent-node density ratio above which a table's linear interpolation is flagged (25 % at mid-layer).
+COARSE_TABLE_RATIO = 4.0
+
 _PROFILE_KEYS = {
     "exponential": (("surface_density_cm3", True), ("scale_height_km", True)),
     "power-law": (("surface_density_cm3", True), ("reference_altitude_km", True), ("exponent", True)),
@@ -706,7 +709,16 @@ def _density(t: _Table):
             p = t.path("file")
             scale = t.number("scale", 1.0, low=0.0, high=1e30)
             t.finish("profile, file, scale")
-            return density.TableProfile.from_file(p, scale=scale)
+            table = density.TableProfile.from_file(p, scale=scale)
+            ratio, h0, h1 = table.steepest_altitude_step()
+            if ratio > COARSE_TABLE_RATIO:
+                from dustrt import warn
+
+                warn(f"{p}: the density changes by a factor {ratio:.3g} between the altitude nodes {h0:g} and "
+                     f"{h1:g} km; the table is interpolated linearly in density, which over-weights that layer "
+                     f"(by {100 * (math.cosh(math.log(ratio) / 2) - 1):.0f} % at its middle for an exponential "
+                     "fall); add altitude nodes")
+            return table
         params = {}
         for key, required in _PROFILE_KEYS[kind]:
             v = t.number(key, _REQUIRED if required else None, low=-1e30, high=1e30)

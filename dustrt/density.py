@@ -327,6 +327,22 @@ class TableProfile(_ProfileMixin):
         return np.where(inside, self.scale * val, 0.0)
 
     # -- readers -------------------------------------------------------------------
+    def steepest_altitude_step(self) -> tuple[float, float, float]:
+        """(ratio, lower km, upper km): the largest factor by which the density falls between
+        adjacent altitude nodes (where both are > 0 and the larger is at least 1 % of the table's
+        maximum: layers that contribute little are not flagged).  Linear interpolation in n over-weights
+        the layer between two nodes by cosh(ln(ratio)/2) at its middle compared with an
+        exponential fall (1.25 for a ratio of 4)."""
+        g = self.density_grid_cm3
+        lo, hi = g[:-1], g[1:]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            matters = np.maximum(lo, hi) >= 0.01 * g.max()
+            ratio = np.where((lo > 0) & (hi > 0) & matters, np.maximum(lo / hi, hi / lo), 1.0)
+        if ratio.size == 0:
+            return 1.0, float(self.altitude_km[0]), float(self.altitude_km[-1])
+        i = int(np.argmax(ratio.max(axis=1)))
+        return float(ratio[i].max()), float(self.altitude_km[i]), float(self.altitude_km[i + 1])
+
     @classmethod
     def from_file(cls, path, scale: float = 1.0) -> "TableProfile":
         """Read a table from ``.nc`` (netCDF-4) or ``.csv``, dispatching on the suffix."""

@@ -274,3 +274,25 @@ def test_pack_profiles_layout():
         pack_profiles([])
     with pytest.raises(ValueError, match=r"profiles\[0\]"):
         pack_profiles(["exponential"])
+
+
+def test_coarse_altitude_nodes_are_flagged(tmp_path):
+    # A 12 km exponential sampled every 40 km: adjacent nodes differ by e^(40/12) = 28, and
+    # linear interpolation over-weights the mid-layer by cosh(ln 28 / 2) = 2.9 (exact algebra).
+    from dustrt import DustrtWarning
+    from dustrt.config import load_scenario
+
+    rows = [(h, d, 1e-4 * math.exp(-h / 12.0)) for h in (0.0, 40.0, 60.0) for d in (-100.0, 100.0)]
+    table = TableProfile.from_file(_write_csv(tmp_path / "coarse.csv", rows))
+    ratio, h0, h1 = table.steepest_altitude_step()
+    assert ratio == pytest.approx(math.exp(40 / 12), rel=1e-12) and (h0, h1) == (0.0, 40.0)
+    scen = tmp_path / "s.toml"
+    scen.write_text('[wavelengths]\nvalues_nm = [400.0, 500.0]\n[[population]]\nname = "a"\n'
+                    'material = { n = 1.5 }\nsize = { distribution = "monodisperse", radius_um = 0.1 }\n'
+                    'density = { profile = "table", file = "coarse.csv" }\n')
+    with pytest.warns(DustrtWarning, match=r"factor 28\.0 between the altitude nodes 0 and 40 km.*by 187 %"):
+        load_scenario(scen)
+    # the 80 km node holds 1.3e-3 of the peak: a step up there alone is not flagged
+    rows = [(h, d, 1e-4 * math.exp(-h / 12.0)) for h in (0.0, 4.0, 8.0, 80.0) for d in (-100.0, 100.0)]
+    fine = TableProfile.from_file(_write_csv(tmp_path / "fine.csv", rows))
+    assert fine.steepest_altitude_step()[0] == pytest.approx(math.exp(4 / 12), rel=1e-12)
