@@ -292,7 +292,8 @@ def test_coarse_altitude_nodes_are_flagged(tmp_path):
                     'density = { profile = "table", file = "coarse.csv" }\n')
     with pytest.warns(DustrtWarning, match=r"factor 28 between the altitude nodes 0 and 40 km.*by 174 %"):
         load_scenario(scen)
-    # the 80 km node holds 1.3e-3 of the peak: a step up there alone is not flagged
-    rows = [(h, d, 1e-4 * math.exp(-h / 12.0)) for h in (0.0, 4.0, 8.0, 80.0) for d in (-100.0, 100.0)]
+    # nodes every 4 km, then one at 100 km: the 60-100 km step holds below 1 % of the peak
+    # (e^-5 = 0.7 %), so it is not flagged and the 4 km steps (ratio e^(1/3)) are the steepest
+    rows = [(h, d, 1e-4 * math.exp(-h / 12.0)) for h in (*range(0, 61, 4), 100) for d in (-100.0, 100.0)]
     fine = TableProfile.from_file(_write_csv(tmp_path / "fine.csv", rows))
     assert fine.steepest_altitude_step()[0] == pytest.approx(math.exp(4 / 12), rel=1e-12)
