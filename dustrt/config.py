@@ -164,6 +164,13 @@ class _Table:
         return v
 
     def string(self, name, default=None, choices=None) -> str | None:
+        """A string (one of ``choices``).  A bad optional one is recorded and reading goes on;
+        a bad required one stops the table (what follows usually depends on it)."""
+        if default is _REQUIRED:
+            return self._string(name, default, choices)
+        return self._collect(lambda: self._string(name, default, choices), default)
+
+    def _string(self, name, default, choices) -> str | None:
         self.used.add(name)
         if name not in self.data:
             if default is _REQUIRED:
@@ -460,7 +467,7 @@ def scenario_from_dict(raw: dict, source: str = "<scenario>", base_dir: Path | N
         for i, p in enumerate(pops_raw):
             with problems.guard():
                 populations.append(_population(top.child(p, f"population[{i}]")))
-        names = [p.name for p in populations]
+            names = [p.get("name") for p in pops_raw if isinstance(p.get("name"), str)]  # also of bad populations
         if len(set(names)) != len(names):
             raise top.error("population", f"population names must be unique, got {names}")
 
@@ -605,7 +612,7 @@ def _check_spectral_coverage(s: Scenario, top: _Table) -> None:
         need_lo = inst.bin_centres_nm[0] - reach
         need_hi = inst.bin_centres_nm[-1] + reach
         if need_lo < wl[0] or need_hi > wl[-1]:
-            raise top.error("instrument.wavelength_min_nm",
+            raise top.error("instrument.wavelength_min_nm" if need_lo < wl[0] else "instrument.wavelength_max_nm",
                             f"the instrument bins and line-spread function need model wavelengths "
                             f"{need_lo:g}-{need_hi:g} nm; [wavelengths] covers {wl[0]:g}-{wl[-1]:g} nm "
                             "(widen [wavelengths] or narrow the instrument range)")
@@ -888,21 +895,26 @@ def _sweep(t: _Table, raw: dict) -> Sweep:
     axes = []
     sigma = t.number("detection_sigma", 5.0, low=0.0, high=100.0, low_open=True)
     chunk = t.number("chunk_size", 0, low=0, high=1e6, integer=True)
-    for key in list(t.data):
-        if key in ("detection_sigma", "chunk_size"):
-            continue
-        if key == "radius_um":
-            values = _grid(t, key, low=1e-4, high=1e3)
-        else:
-            values = _grid(t, key, low=-1e30, high=1e30)
+    swept = [k for k in t.data if k not in ("detection_sigma", "chunk_size")]
+    for key in swept:
+        with t.problems.guard():  # every swept key is checked, even after a bad one
             try:
-                resolve_dotted(raw, key)
-            except KeyError as exc:
-                raise t.error(key, f"is not a numeric key of this scenario ({exc.args[0]}); use a dotted "
-                                   "path such as 'observer.local_time_h' or "
-                                   "'population.NAME.density.scale_height_km'") from None
-        axes.append((key, np.asarray(values, dtype=float)))
-    if not axes:
+                t.bad, bad_before = False, t.bad
+                if key != "radius_um":
+                    try:
+                        resolve_dotted(raw, key)
+                    except KeyError as exc:
+                        t.used.add(key)
+                        raise t.error(key, f"is not a numeric key of this scenario ({exc.args[0]}); use a dotted "
+                                           "path such as 'observer.local_time_h' or "
+                                           "'population.NAME.density.scale_height_km'") from None
+                limits = dict(low=1e-4, high=1e3) if key == "radius_um" else dict(low=-1e30, high=1e30)
+                values = _grid(t, key, **limits)
+                if not t.bad:
+                    axes.append((key, np.asarray(values, dtype=float)))
+            finally:
+                t.bad = t.bad or bad_before
+    if not swept:
         raise t.error(None, "needs at least one swept key (e.g. radius_um = {start, stop, num, spacing})")
     t.finish()
     return Sweep(axes=tuple(axes), detection_sigma=sigma, chunk_size=chunk)
@@ -943,6 +955,8 @@ def resolve_dotted(raw: dict, dotted: str) -> float:
     node, last = _locate(raw, dotted)
     if last not in node:
         # an optional key that takes a default is still sweepable if its table exists
+        if last not in _KNOWN_KEYS:
+            raise KeyError(f"no key {last!r} (misspelt?)")
         return math.nan
     v = node[last]
     if isinstance(v, bool) or not isinstance(v, (int, float)):

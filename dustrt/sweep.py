@@ -148,6 +148,7 @@ def run_sweep(scenario, output_path, scheduler=None, workers=None, resume=False,
 
     shape = tuple(len(v) for _, v in spec["axes"])
     n_points = int(np.prod(shape))
+    bad: dict[str, list[str]] = {}  # problem -> grid points that have it
     for i in range(n_points):
         values = grid_values(spec["axes"], i)
         try:
@@ -156,8 +157,13 @@ def run_sweep(scenario, output_path, scheduler=None, workers=None, resume=False,
             check_bands(sc, sc.instrument.instrument.bin_centres_nm, "the instrument")
         except ValueError as exc:
             point = ", ".join(f"{k} = {v:g}" for k, v in values.items())
-            raise ValueError(f"{scenario.source}: key 'sweep': the grid point ({point}) gives an invalid "
-                             f"scenario: {exc}") from None
+            for problem in getattr(exc, "problems", [str(exc)]):
+                bad.setdefault(problem, []).append(point)
+    if bad:
+        lines = [f"{problem} (at {len(points)} grid point(s), e.g. {points[0]})" for problem, points in bad.items()]
+        n_bad = len({p for points in bad.values() for p in points})
+        raise ValueError(f"{scenario.source}: key 'sweep': {n_bad} of {n_points} grid points give an invalid "
+                         "scenario:\n  " + "\n  ".join(lines))
     output_path = Path(output_path)
     ckdir = output_path.with_name(output_path.name + ".chunks")
     res = run_chunked(compute_chunk, spec, n_points, ckdir,

@@ -130,3 +130,29 @@ def test_observe_lists_missing_limb_and_instrument_tables_together(tmp_path, cap
     err = capsys.readouterr().err
     for key in ("observer", "view", "population[0].density", "instrument"):
         assert f"key '{key}'" in err
+
+
+def test_sweep_keys_and_grid_points_are_all_reported(tmp_path, capsys):
+    from pathlib import Path
+
+    plan = (Path(__file__).resolve().parents[1] / "configs" / "plan_grain_size.toml").read_text()
+    bad = plan.replace('"instrument.integration_time_s" = [1.0, 10.0, 100.0]',
+                       '"instrument.integraton_time_s" = [1.0]\n"population.lofted.density.scale_heigth_km" = [5.0]')
+    bad = bad.replace('spacing = "log"', 'spacing = "logarithmic"').replace("num = 12,", "num = 0,")
+    path = tmp_path / "bad.toml"
+    path.write_text(bad)
+    with pytest.raises(ScenarioError) as info:
+        load_scenario(path)
+    text = str(info.value)
+    # a misspelt optional key would otherwise sweep nothing, silently
+    for key in ("sweep.instrument.integraton_time_s", "sweep.population.lofted.density.scale_heigth_km",
+                "sweep.radius_um.spacing", "sweep.radius_um.num"):
+        assert f"key '{key}'" in text, key
+    grid = plan.replace('"instrument.integration_time_s" = [1.0, 10.0, 100.0]',
+                        '"instrument.integration_time_s" = [1.0, -10.0]\n"instrument.frames" = [1, -3]')
+    path.write_text(grid.replace("num = 12,", "num = 2,"))
+    assert main(["sweep", str(path), "-o", str(tmp_path / "s.nc")]) == 2
+    err = capsys.readouterr().err
+    assert "6 of 8 grid points give an invalid scenario" in err
+    assert "key 'instrument.frames': must lie in [1, 1e+07], got -3 (at 4 grid point(s)" in err
+    assert "key 'instrument.integration_time_s': must lie in (0, 1e+07], got -10.0 (at 4 grid point(s)" in err
