@@ -62,12 +62,19 @@ def read_observation(path, scenario=None) -> ObservedSpectra:
 
     path = Path(path)
     ds = read_netcdf(path)
-    for v in ("radiance", "radiance_uncertainty", "look_direction", "observer_position_km"):
-        if v not in ds.variables:
-            raise ValueError(f"{path}: variable {v!r} is missing (a calibrated observation needs radiance, "
-                             "radiance_uncertainty, look_direction, observer_position_km)")
+    required = ("radiance", "radiance_uncertainty", "look_direction", "observer_position_km")
+    missing = [v for v in required if v not in ds.variables]
+    if missing:
+        raise ValueError(f"{path}: variable(s) {', '.join(repr(v) for v in missing)} missing (a calibrated "
+                         f"observation needs {', '.join(required)})")
+    unit_problems = []
     for name, expected in OBSERVATION_UNITS.items():
-        _check_units(path, ds, name, expected)
+        try:
+            _check_units(path, ds, name, expected)
+        except ValueError as exc:
+            unit_problems.append(str(exc))
+    if unit_problems:
+        raise ValueError("\n  ".join(unit_problems))
     want = ("observation", "line_of_sight", "wavelength_nm")
     rad = ds["radiance"]
     if set(rad.dims) != set(want):

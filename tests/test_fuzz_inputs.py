@@ -515,6 +515,9 @@ NETCDF_CASES = {
     "drop_radiance_uncertainty": (lambda ds: ds.drop_vars("radiance_uncertainty"), ("radiance_uncertainty",), True),
     "drop_look_direction": (lambda ds: ds.drop_vars("look_direction"), ("look_direction",), True),
     "drop_observer_position_km": (lambda ds: ds.drop_vars("observer_position_km"), ("observer_position_km",), True),
+    # several problems at once are all named
+    "drop_three": (lambda ds: ds.drop_vars(["radiance_uncertainty", "look_direction", "observer_position_km"]),
+                   ("radiance_uncertainty", "look_direction", "observer_position_km"), True),
     "drop_wavelength_nm": (lambda ds: ds.drop_vars("wavelength_nm"), ("wavelength_nm",), True),
     "radiance_2d": (lambda ds: ds.assign(radiance=ds["radiance"].isel(observation=0)), ("radiance",), True),
     "radiance_4d": (lambda ds: ds.assign(radiance=ds["radiance"].expand_dims(extra=2)), ("radiance",), True),
