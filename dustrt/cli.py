@@ -117,7 +117,7 @@ def _cmd_sweep(args) -> int:
 
     sc = _load(args, args.scenario)
     ds = run_sweep(sc, args.output, scheduler=args.scheduler, workers=args.workers,
-                   resume=args.resume, progress=not args.quiet)
+                   resume=args.resume, progress=not args.quiet, overwrite=args.overwrite)
     _say(args, f"wrote {args.output}")
     if args.plot:
         from dustrt import plots

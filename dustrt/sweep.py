@@ -136,10 +136,15 @@ def fingerprint(spec) -> str:
     return h.hexdigest()
 
 
-def run_sweep(scenario, output_path, scheduler=None, workers=None, resume=False, progress=False):
-    """Run the scenario's [sweep], write the result atomically to ``output_path`` and return it."""
+def run_sweep(scenario, output_path, scheduler=None, workers=None, resume=False, progress=False,
+              overwrite=False):
+    """Run the scenario's [sweep], write the result atomically to ``output_path`` and return it.
+
+    Finished chunks of an interrupted sweep (``OUTPUT.chunks/``) are reused with ``resume``;
+    without it they are discarded only with ``overwrite`` (otherwise this refuses to start).
+    """
     from dustrt import io
-    from dustrt.chunks import remove_checkpoints, run_chunked
+    from dustrt.chunks import completed_chunks, remove_checkpoints, run_chunked
 
     spec = sweep_spec(scenario)
     # validate every grid point's scenario up front (parsing only, ~1 ms each), so a bad
@@ -166,6 +171,9 @@ def run_sweep(scenario, output_path, scheduler=None, workers=None, resume=False,
                          "scenario:\n  " + "\n  ".join(lines))
     output_path = Path(output_path)
     ckdir = output_path.with_name(output_path.name + ".chunks")
+    if not resume and not overwrite and ckdir.is_dir() and completed_chunks(ckdir):
+        raise ValueError(f"{ckdir}: holds {len(completed_chunks(ckdir))} finished chunk(s) of an interrupted sweep; "
+                         "pass --resume to reuse them, or --overwrite to start over")
     res = run_chunked(compute_chunk, spec, n_points, ckdir,
                       chunk_size=scenario.sweep.chunk_size or None, scheduler=scheduler, workers=workers,
                       resume=resume, progress=progress, fingerprint=fingerprint(spec))

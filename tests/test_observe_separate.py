@@ -399,6 +399,10 @@ def test_sweep_interrupted_and_resumed_recomputes_nothing_finished(tmp_path, mon
         sweep_mod.run_sweep(load_scenario(path), out)
     finished = completed_chunks(tmp_path / "sw.nc.chunks")
     assert len(finished) == 3 and not out.exists()
+    # a rerun without --resume does not silently throw the finished chunks away
+    with pytest.raises(ValueError, match=r"holds 3 finished chunk\(s\).*--resume.*--overwrite"):
+        sweep_mod.run_sweep(load_scenario(path), out)
+    assert completed_chunks(tmp_path / "sw.nc.chunks") == finished
     calls.clear()
     monkeypatch.setattr(sweep_mod, "detectability", lambda sc, s: (calls.append(1), real(sc, s))[1])
     ds = sweep_mod.run_sweep(load_scenario(path), out, resume=True)
