@@ -107,18 +107,20 @@ def limits_figure(ds):
 def separation_figure(ds, population=0, observation=0):
     """Data, fitted zodiacal and dust components, and residuals for a few lines of sight."""
     plt = _plt()
-    fig, (ax1, ax2) = plt.subplots(2, 1, figsize=(8, 6), sharex=True, gridspec_kw={"height_ratios": [3, 1]})
+    fig, (ax1, ax2) = plt.subplots(2, 1, figsize=(10, 6), sharex=True, gridspec_kw={"height_ratios": [3, 1]})
     wl = ds["wavelength_nm"].values
     sel = ds.isel(population=population, observation=observation)
     for k in _pick(ds["line_of_sight"].values, 3):
         s = sel.isel(line_of_sight=k)
-        (line,) = ax1.semilogy(wl, s["observed_radiance"], lw=0.8, label=f"data, line of sight {k}")
+        view = (f"tangent altitude {float(s['tangent_altitude_km']):.1f} km" if "tangent_altitude_km" in s.coords
+                else f"line of sight {k}")
+        (line,) = ax1.semilogy(wl, s["observed_radiance"], lw=0.8, label=f"data, {view}")
         ax1.semilogy(wl, s["zodiacal_fit_radiance"], ls=":", color=line.get_color(), label="zodiacal fit")
         ax1.semilogy(wl, s["dust_excess_radiance"], ls="--", color=line.get_color(), label="dust fit")
         model = s["zodiacal_fit_radiance"] + s["dust_excess_radiance"]
         ax2.plot(wl, (s["observed_radiance"] - model) / s["observed_uncertainty"], lw=0.8, color=line.get_color())
     ax1.set_ylabel("spectral radiance [W m⁻² sr⁻¹ nm⁻¹]")
-    ax1.legend(fontsize=7)
+    ax1.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0))  # beside: never on the spectra
     ax2.set_xlabel("wavelength [nm]")
     ax2.set_ylabel("residual [σ]")
     fig.suptitle(f"dust/zodiacal separation: population {ds['population'].values[population]}")
@@ -141,6 +143,15 @@ def _cell_edges(values, log: bool):
     return np.exp(e) if log else e
 
 
+def _axis_label(coord, dim) -> str:
+    """'grain radius [µm]' for the radius axis; other swept keys by their dotted path and units."""
+    key = coord.attrs.get("sweep_key", dim)
+    if key == "radius_um":
+        return "grain radius (monodisperse radius or lognormal median) [µm]"
+    units = coord.attrs.get("units", "")
+    return f"{key} [{units}]" if units and units != "1" else key
+
+
 def sweep_figure(ds):
     """Minimum detectable density vs grain radius (log-log), or a 2-D map for two swept keys."""
     plt = _plt()
@@ -158,8 +169,8 @@ def sweep_figure(ds):
             if ylog:
                 ax.set_yscale("log")
             fig.colorbar(mesh, ax=ax, label="log10 minimum detectable density [cm⁻³]")
-            ax.set_xlabel(f"{ds[dims[0]].attrs.get('sweep_key', dims[0])} [{ds[dims[0]].attrs.get('units', '')}]")
-            ax.set_ylabel(f"{ds[dims[1]].attrs.get('sweep_key', dims[1])} [{ds[dims[1]].attrs.get('units', '')}]")
+            ax.set_xlabel(_axis_label(ds[dims[0]], dims[0]))
+            ax.set_ylabel(_axis_label(ds[dims[1]], dims[1]))
             ax.set_title(f"population {p}", fontsize=10)
         return fig
     fig, (ax, axv) = plt.subplots(1, 2, figsize=(11, 4.5))
@@ -176,7 +187,7 @@ def sweep_figure(ds):
             k = int(np.nanargmin(vol.values))  # the most detectable dust mass loading
             axv.plot(ds[x].values[k], vol.values[k], "*", ms=11, color=line.get_color())
     for a in (ax, axv):
-        a.set_xlabel(f"{ds[x].attrs.get('sweep_key', x)} [{ds[x].attrs.get('units', '')}]")
+        a.set_xlabel(_axis_label(ds[x], x))
         a.legend(fontsize=7)
     ax.set_ylabel("minimum detectable density [cm⁻³]")
     axv.set_ylabel("minimum detectable grain volume [µm³ cm⁻³]")

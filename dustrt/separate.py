@@ -440,6 +440,15 @@ def warn_poor_fits(source, labels, reliable, median_chi2, what: str) -> None:
              "model's, or a calibration error all show up this way)")
 
 
+def tangent_altitude_km(observer_km, look_direction, radius_km):
+    """Lowest altitude [km] along each view (..., 3) -> (...)."""
+    from dustrt.geometry import tangent_point_km
+
+    shape = observer_km.shape[:-1]
+    p = tangent_point_km(observer_km.reshape(-1, 3), look_direction.reshape(-1, 3))
+    return (np.linalg.norm(p, axis=-1) - radius_km).reshape(shape)
+
+
 def separate_file(observation_path, scenario, progress=False):
     """Run the separation on a file and package the results as an xarray Dataset."""
     import xarray as xr
@@ -509,6 +518,10 @@ def separate_file(observation_path, scenario, progress=False):
             "line_of_sight": ("line_of_sight", np.arange(spectra.radiance.shape[1]),
                               {"long_name": "line-of-sight index in the input file"}),
             "wavelength_nm": ("wavelength_nm", wl, {"units": "nm", "long_name": "bin centre wavelength"}),
+            "tangent_altitude_km": (("observation", "line_of_sight"), tangent_altitude_km(
+                spectra.observer_km, spectra.look_direction, scenario.body_radius_km),
+                {"units": "km", "long_name": "lowest altitude along the line of sight (negative: it meets the "
+                                             "surface)"}),
             "parameter": ("parameter", params, {"long_name": "fitted amplitude"}),
             "parameter_2": ("parameter_2", params, {"long_name": "fitted amplitude (second index of the covariance)"}),
         },
