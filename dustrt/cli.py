@@ -298,7 +298,12 @@ def main(argv=None) -> int:
         print(f"dustrt {args.command}: error: input is not UTF-8 text ({exc.reason})", file=sys.stderr)
         return 2
     except (ValueError, OSError) as exc:
-        # bad input: scenario/data validation errors are ValueErrors with file and key
+        # bad input: scenario/data validation errors are ValueErrors with file and key.
+        # DUSTRT_TRACEBACK=1 shows where one came from (for reports of a suspected bug).
+        import os
+
+        if os.environ.get("DUSTRT_TRACEBACK"):
+            raise
         print(f"dustrt {args.command}: error: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:

@@ -203,3 +203,11 @@ def test_existing_outputs_are_kept_unless_overwrite(tmp_path, capsys):
     assert not (tmp_path / "new.nc").exists() and png.read_bytes() == b"keep me too"
     assert main(["optics", str(p), "-o", str(out), "--plot", str(png), "-q", "--overwrite"]) == 0
     assert out.read_bytes()[:4] == b"\x89HDF" and png.read_bytes()[:4] == b"\x89PNG"
+
+
+def test_traceback_on_request(tmp_path, monkeypatch):
+    p = tmp_path / "s.toml"
+    p.write_text("[wavelengths]\n")
+    monkeypatch.setenv("DUSTRT_TRACEBACK", "1")
+    with pytest.raises(ValueError, match="wavelengths"):
+        main(["optics", str(p), "-o", str(tmp_path / "o.nc")])
