@@ -260,59 +260,73 @@ def weighted_least_squares(data, sigma, templates, mask=None, *, rcond=DEFAULT_R
 
 
 def nonnegative_least_squares(
-    data, sigma, templates, nonneg_index: int, mask=None, *, rcond=DEFAULT_RCOND
+    data, sigma, templates, nonneg_index, mask=None, *, rcond=DEFAULT_RCOND
 ) -> LsqResult:
-    """Weighted least squares with one amplitude constrained to be ≥ 0.
+    """Weighted least squares with some amplitudes constrained to be ≥ 0.
 
-    Fits all templates; where amplitude ``nonneg_index`` comes out negative,
-    refits that spectrum without the template, so the amplitude is exactly
-    0 and its covariance row and column are 0.  For a single constrained
-    amplitude this active-set step gives the exact constrained minimum of
-    χ² (the χ² surface is a convex quadratic) (Lawson & Hanson 1974,
-    *Solving Least Squares Problems*, ch. 23).
+    The constrained minimum of χ² (a convex quadratic) sets some constrained
+    amplitudes to exactly 0 and fits the rest freely; so it is the smallest-χ²
+    feasible fit among the fits that drop each subset of the constrained
+    templates (Lawson & Hanson 1974, *Solving Least Squares Problems*, ch. 23).
+    Spectra whose unconstrained fit is feasible keep it; the others are refitted
+    for every subset (2^C fits for C constrained amplitudes: meant for a few).
+    Dropped amplitudes are 0 with zero covariance rows and columns.
 
     Parameters
     ----------
     data, sigma, templates, mask, rcond
         As for :func:`weighted_least_squares`.
-    nonneg_index : int
-        Index 0 ≤ k < K of the template whose amplitude must be ≥ 0 (e.g.
-        the dust template: a negative grain density is unphysical).
+    nonneg_index : int or sequence of int
+        Indices 0 ≤ k < K of the templates whose amplitudes must be ≥ 0 (e.g.
+        dust templates: a negative grain density is unphysical); at most 8.
 
     Returns
     -------
     LsqResult
         As for :func:`weighted_least_squares`; ``clamped`` marks refitted
-        spectra, whose dof = n_used - (K - 1) counts the free amplitudes.
+        spectra, whose dof = n_used - (number of free amplitudes).
     """
+    import itertools
+
     rcond = _check_rcond(rcond)
     batch, y, weight, tmpl, n_used = _prepare(data, sigma, templates, mask)
     n_templates = tmpl.shape[-2]
-    if isinstance(nonneg_index, bool) or not isinstance(nonneg_index, (int, np.integer)):
-        raise ValueError(
-            f"nonneg_index must be an integer in [0, {n_templates}), got {nonneg_index!r}"
-        )
-    k = int(nonneg_index)
-    if not 0 <= k < n_templates:
-        raise ValueError(f"nonneg_index must lie in [0, {n_templates}), got {k}")
+    indices = [nonneg_index] if np.ndim(nonneg_index) == 0 else list(nonneg_index)
+    for k in indices:
+        if isinstance(k, bool) or not isinstance(k, (int, np.integer)) or not 0 <= int(k) < n_templates:
+            raise ValueError(f"nonneg_index must be integers in [0, {n_templates}), got {nonneg_index!r}")
+    indices = sorted({int(k) for k in indices})
+    if not 1 <= len(indices) <= 8:
+        raise ValueError(f"nonneg_index must name 1 to 8 templates, got {len(indices)}")
 
     amplitudes, covariance, chi2 = _fit(y, weight, tmpl, n_used, rcond)
-    clamped = amplitudes[:, k] < 0  # NaN (degenerate) stays unclamped and NaN
+    clamped = np.any(amplitudes[:, indices] < 0, axis=-1)  # NaN (degenerate) stays unclamped and NaN
     dof = n_used - n_templates
     if np.any(clamped):
-        # Refit only the spectra that need it, without template k.
-        keep = np.array([j for j in range(n_templates) if j != k], dtype=np.intp)
-        sub_tmpl = tmpl[:, keep, :] if tmpl.shape[0] == 1 else tmpl[clamped][:, keep, :]
-        sub_amp, sub_cov, sub_chi2 = _fit(
-            y[clamped], weight[clamped], sub_tmpl, n_used[clamped], rcond
-        )
-        n_clamped = sub_amp.shape[0]
-        full_amp = np.zeros((n_clamped, n_templates))
-        full_amp[:, keep] = sub_amp
-        full_cov = np.zeros((n_clamped, n_templates, n_templates))
-        full_cov[:, keep[:, None], keep[None, :]] = sub_cov
-        amplitudes[clamped] = full_amp
-        covariance[clamped] = full_cov
-        chi2[clamped] = sub_chi2
-        dof = np.where(clamped, dof + 1, dof)
+        rows = np.flatnonzero(clamped)
+        best_chi2 = np.full(rows.size, np.inf)
+        best_amp = np.full((rows.size, n_templates), np.nan)
+        best_cov = np.full((rows.size, n_templates, n_templates), np.nan)
+        best_dof = dof[rows].copy()
+        for size in range(1, len(indices) + 1):
+            for dropped in itertools.combinations(indices, size):
+                keep = np.array([j for j in range(n_templates) if j not in dropped], dtype=np.intp)
+                sub_tmpl = tmpl[:, keep, :] if tmpl.shape[0] == 1 else tmpl[rows][:, keep, :]
+                sub_amp, sub_cov, sub_chi2 = _fit(y[rows], weight[rows], sub_tmpl, n_used[rows], rcond)
+                still = [j for j, k in enumerate(keep) if k in indices]
+                feasible = np.all(sub_amp[:, still] >= 0, axis=-1) & np.isfinite(sub_chi2)
+                better = feasible & (sub_chi2 < best_chi2)
+                if not np.any(better):
+                    continue
+                best_chi2[better] = sub_chi2[better]
+                best_amp[better] = 0.0
+                best_amp[np.ix_(better, keep)] = sub_amp[better]
+                best_cov[better] = 0.0
+                best_cov[np.ix_(np.flatnonzero(better), keep, keep)] = sub_cov[better]
+                best_dof[better] = n_used[rows][better] - keep.size
+        amplitudes[rows] = best_amp
+        covariance[rows] = best_cov
+        chi2[rows] = np.where(np.isfinite(best_chi2), best_chi2, np.nan)
+        dof = dof.copy()
+        dof[rows] = best_dof
     return _result(batch, amplitudes, covariance, chi2, dof, n_used, clamped)

@@ -257,3 +257,32 @@ def test_nonnegative_single_template_and_degenerate():
     assert res.chi2[0] == pytest.approx(np.sum((data[0] / 0.1) ** 2), rel=1e-12)
     assert res.dof[0] == W_NM.size
     assert not res.clamped[1] and np.isnan(res.amplitudes[1, 0])
+
+
+def test_nonnegative_several_amplitudes_match_bounded_least_squares():
+    # Two constrained templates (1 and 2) with true amplitudes at and around zero: every
+    # spectrum's result must equal scipy's bounded-variable least squares (Stark & Parker
+    # 1995 BVLS, an independent solver) and satisfy the Kuhn-Tucker conditions [LH74].
+    rng = np.random.default_rng(7)
+    tmpl = _templates()
+    sigma = 0.2
+    truth = np.array([[1.0, 0.0, 0.0], [1.0, -0.5, 0.3], [1.0, 0.4, -0.6], [1.0, -0.4, -0.4]] * 10)
+    data = truth @ tmpl + rng.normal(size=(truth.shape[0], W_NM.size)) * sigma
+    res = nonnegative_least_squares(data, sigma, tmpl, nonneg_index=[1, 2])
+    assert np.all(res.amplitudes[:, 1:] >= 0)
+    free = weighted_least_squares(data, sigma, tmpl)
+    np.testing.assert_array_equal(res.clamped, np.any(free.amplitudes[:, 1:] < 0, axis=-1))
+    both_zero = np.all(res.amplitudes[:, 1:] == 0, axis=-1)
+    assert both_zero.any() and (res.clamped & ~both_zero).any()  # both kinds of active set occur
+    for i in range(truth.shape[0]):
+        bounded = lsq_linear(tmpl.T / sigma, data[i] / sigma, bounds=([-np.inf, 0.0, 0.0], np.inf),
+                             method="bvls", tol=1e-14)
+        np.testing.assert_allclose(res.amplitudes[i], bounded.x, rtol=1e-8, atol=1e-10)
+        grad = -2.0 * (tmpl @ (data[i] - res.amplitudes[i] @ tmpl)) / sigma**2
+        for k in (1, 2):
+            if res.amplitudes[i, k] == 0:
+                assert grad[k] >= -1e-9 * np.abs(grad).max()
+        free_k = np.count_nonzero(res.amplitudes[i]) if res.clamped[i] else 3
+        assert res.dof[i] == W_NM.size - free_k
+    with pytest.raises(ValueError, match="nonneg_index"):
+        nonnegative_least_squares(data, sigma, tmpl, nonneg_index=[1, 5])
