@@ -240,7 +240,7 @@ _KNOWN_KEYS = {
     "field_of_view_deg", "solid_angle_sr", "integration_time_s", "frames", "bin_width_nm", "resolution_fwhm_nm",
     "wavelength_min_nm", "wavelength_max_nm", "throughput", "read_noise_e", "dark_current_e_s",
     "stray_light_fraction", "stray_light_reference_radiance_w_m2_sr_nm", "field_of_view_rings", "blue_band_nm",
-    "red_band_nm", "fit_bands_nm", "mask_nm", "free_colour_slope", "confidence", "method", "detection_sigma",
+    "red_band_nm", "fit_bands_nm", "mask_nm", "free_colour_slope", "joint_fit", "confidence", "method", "detection_sigma",
     "chunk_size", "start", "stop", "num", "step", "spacing",
 }
 
@@ -332,6 +332,7 @@ class Separation:
     fit_bands_nm: tuple = ()
     mask_nm: tuple = ()
     free_colour_slope: bool = False
+    joint_fit: bool = False  # all populations in one fit (else one hypothesis at a time)
 
 
 @dataclass(frozen=True)
@@ -886,8 +887,9 @@ def _separation(t: _Table) -> Separation:
         fit_bands_nm=_band_list(t, "fit_bands_nm"),
         mask_nm=_band_list(t, "mask_nm"),
         free_colour_slope=t.boolean("free_colour_slope", False),
+        joint_fit=t.boolean("joint_fit", False),
     )
-    t.finish("blue_band_nm, red_band_nm, fit_bands_nm, mask_nm, free_colour_slope")
+    t.finish("blue_band_nm, red_band_nm, fit_bands_nm, mask_nm, free_colour_slope, joint_fit")
     return s
 
 

@@ -144,7 +144,8 @@ def limits_file(observation_path, scenario, method=None, progress=False):
     names = [p.name for p in scenario.populations]
     warn_poor_fits(spectra.source, [f"{names[i]} (radius {sc.populations[i].size.characteristic_radius_um:.3g} um)"
                                     for i in range(len(names)) for sc in variants],
-                   stack["reliable"].ravel(), stack["median_chi2"].ravel(), "the limits")
+                   stack["reliable"].ravel(), stack["median_chi2"].ravel(), "the limits",
+                   joint=scenario.separation.joint_fit)
     detect_sigma = scenario.sweep.detection_sigma if scenario.sweep is not None else 5.0
     # (P, S): the swept radius, or each population's own characteristic radius
     radius = np.array([[sc.populations[i].size.characteristic_radius_um for sc in variants]

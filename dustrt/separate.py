@@ -297,29 +297,41 @@ class SeparationFit:
     dof: np.ndarray
     n_used: np.ndarray
     parameter_names: tuple
+    dust_index: int = -1  # this population's amplitude among the parameters (joint fits: one of several)
 
     @property
     def dust_amplitude(self) -> np.ndarray:
-        return self.amplitudes[..., -1]
+        return self.amplitudes[..., self.dust_index]
 
     @property
     def dust_sigma(self) -> np.ndarray:
-        return np.sqrt(self.covariance[..., -1, -1])
+        return np.sqrt(self.covariance[..., self.dust_index, self.dust_index])
+
+    @property
+    def dust_amplitude_nonneg(self) -> np.ndarray:
+        return self.amplitudes_nonneg[..., self.dust_index]
 
 
 def design_matrix(zodiacal, dust, wavelength_nm, free_colour_slope: bool):
-    """Templates (..., K, B): zodiacal, optional colour-slope term, dust."""
+    """Templates (..., K, B): zodiacal, optional colour-slope term, then the dust template (..., B)
+    or several dust templates (D, ..., B) for a joint fit."""
     parts = [zodiacal]
     if free_colour_slope:
         parts.append(zodiacal * np.log(np.asarray(wavelength_nm) / REFERENCE_WAVELENGTH_NM))
-    parts.append(dust)
+    dust = np.asarray(dust)
+    parts.extend(list(dust) if dust.ndim == np.ndim(zodiacal) + 1 else [dust])
     return np.stack(parts, axis=-2)
 
 
-def fit_spectra(data, sigma, templates, use_mask, nonnegative: bool = True) -> tuple:
+def zodiacal_parameter_count(scenario) -> int:
+    return 2 if scenario.separation.free_colour_slope else 1
+
+
+def fit_spectra(data, sigma, templates, use_mask, nonnegative: bool = True, nonneg_index=-1) -> tuple:
     """Weighted fits of many spectra with scaled templates.
 
-    Returns (amplitudes, covariance, amplitudes with a_D >= 0 or None, lsq result).
+    Returns (amplitudes, covariance, amplitudes with the dust amplitude(s) ``nonneg_index``
+    (default: the last template) >= 0, or None, lsq result).
     Templates differ by many orders of magnitude (zodiacal radiance vs dust per unit
     density), so each is scaled to unit maximum before solving and the amplitudes
     and covariances are scaled back.  ``nonnegative=False`` skips the constrained
@@ -327,6 +339,8 @@ def fit_spectra(data, sigma, templates, use_mask, nonnegative: bool = True) -> t
     """
     from dustrt.lsq import nonnegative_least_squares, weighted_least_squares
 
+    n_templates = templates.shape[-2]
+    nonneg_index = [k % n_templates for k in np.atleast_1d(nonneg_index)]
     scale = np.max(np.abs(templates), axis=-1)  # (..., K)
     scale = np.where(scale > 0, scale, 1.0)
     t = templates / scale[..., None]
@@ -335,7 +349,7 @@ def fit_spectra(data, sigma, templates, use_mask, nonnegative: bool = True) -> t
     cov = res.covariance / (scale[..., :, None] * scale[..., None, :])
     a_nn = None
     if nonnegative:
-        a_nn = nonnegative_least_squares(data, sigma, t, templates.shape[-2] - 1, mask=use_mask).amplitudes / scale
+        a_nn = nonnegative_least_squares(data, sigma, t, nonneg_index, mask=use_mask).amplitudes / scale
     return a, cov, a_nn, res
 
 
@@ -357,7 +371,7 @@ def check_bands(scenario, wavelength_nm, source: str) -> None:
         if not np.any((wl >= band[0]) & (wl <= band[1]) & window_mask(scenario, wl)):
             raise ValueError(f"{scenario.source}: key 'separation.{key}': {list(band)} holds no unmasked bin of "
                              f"{source} (bins {wl[0]:g}-{wl[-1]:g} nm)")
-    k = 3 if sep.free_colour_slope else 2
+    k = zodiacal_parameter_count(scenario) + (len(scenario.populations) if sep.joint_fit else 1)
     if np.sum(fit_mask(scenario, wl)) <= k:
         raise ValueError(f"{scenario.source}: key 'separation.fit_bands_nm': fit bands and masks leave "
                          f"{int(np.sum(fit_mask(scenario, wl)))} bin(s) of {source}; the fit needs more than {k}")
@@ -374,16 +388,26 @@ def separate(scenario, spectra: ObservedSpectra, templates: Templates | None = N
     use = spectra.usable & fit_mask(scenario, spectra.wavelength_nm) & limb_view[..., None]
     zod = templates.zodiacal[templates.ray_index]  # (O, L, B)
     fits = []
-    names = ("zodiacal_amplitude",) + (("zodiacal_colour_slope",) if scenario.separation.free_colour_slope
-                                       else ()) + ("dust_amplitude",)
+    sep = scenario.separation
+    zod_names = ("zodiacal_amplitude",) + (("zodiacal_colour_slope",) if sep.free_colour_slope else ())
     data = np.where(use, spectra.radiance, np.nan)
     sigma = np.where(use, spectra.uncertainty, 1.0)
-    for p in range(templates.dust_per_unit.shape[0]):
+    n_pop = templates.dust_per_unit.shape[0]
+    if sep.joint_fit:
+        # one fit with every population's template: each amplitude is profiled over the others
+        dust = templates.dust_per_unit[:, templates.ray_index]  # (P, O, L, B)
+        x = design_matrix(zod, dust, spectra.wavelength_nm, sep.free_colour_slope)
+        k0 = len(zod_names)
+        a, cov, a_nn, res = fit_spectra(data, sigma, x, use, nonneg_index=list(range(k0, k0 + n_pop)))
+        names = zod_names + tuple(f"dust_amplitude_{p.name}" for p in scenario.populations)
+        return [SeparationFit(amplitudes=a, covariance=cov, amplitudes_nonneg=a_nn, chi2=res.chi2, dof=res.dof,
+                              n_used=res.n_used, parameter_names=names, dust_index=k0 + p) for p in range(n_pop)]
+    for p in range(n_pop):
         dust = templates.dust_per_unit[p][templates.ray_index]
-        x = design_matrix(zod, dust, spectra.wavelength_nm, scenario.separation.free_colour_slope)
+        x = design_matrix(zod, dust, spectra.wavelength_nm, sep.free_colour_slope)
         a, cov, a_nn, res = fit_spectra(data, sigma, x, use)
         fits.append(SeparationFit(amplitudes=a, covariance=cov, amplitudes_nonneg=a_nn, chi2=res.chi2,
-                                  dof=res.dof, n_used=res.n_used, parameter_names=names))
+                                  dof=res.dof, n_used=res.n_used, parameter_names=zod_names + ("dust_amplitude",)))
     return fits
 
 
@@ -427,7 +451,7 @@ def fit_quality(fit) -> tuple[bool, float]:
     return bad <= 0.1, float(np.median(chi2_nu))
 
 
-def warn_poor_fits(source, labels, reliable, median_chi2, what: str) -> None:
+def warn_poor_fits(source, labels, reliable, median_chi2, what: str, joint: bool = False) -> None:
     """One warning naming every hypothesis whose fits do not describe the data."""
     bad = [f"{lab} (median reduced chi-square {c:.3g})" for lab, ok, c in zip(labels, reliable, median_chi2)
            if not ok]
@@ -436,8 +460,9 @@ def warn_poor_fits(source, labels, reliable, median_chi2, what: str) -> None:
 
         warn(f"{source}: the zodiacal + dust model does not describe the data for {', '.join(bad)}: over 10 % "
              f"of spectra have a chi-square p-value below 1e-3, so {what} for them are not reliable "
-             "(each hypothesis is fitted alone: another dust population, a zodiacal colour other than the "
-             "model's, or a calibration error all show up this way)")
+             + ("(all populations fitted jointly: a missing population, " if joint else
+                "(each hypothesis is fitted alone: another dust population present, ")
+             + "a zodiacal colour other than the model's, or a calibration error all show up this way)")
 
 
 def tangent_altitude_km(observer_km, look_direction, radius_km):
@@ -462,7 +487,7 @@ def separate_file(observation_path, scenario, progress=False):
     fits = separate(scenario, spectra, templates)
     quality = [fit_quality(f) for f in fits]
     warn_poor_fits(spectra.source, [p.name for p in scenario.populations], [q[0] for q in quality],
-                   [q[1] for q in quality], "the dust amplitudes")
+                   [q[1] for q in quality], "the dust amplitudes", joint=scenario.separation.joint_fit)
     sep = scenario.separation
     limb_view = ~templates.hits_surface[templates.ray_index]
     use = spectra.usable & fit_mask(scenario, spectra.wavelength_nm) & limb_view[..., None]
@@ -475,12 +500,14 @@ def separate_file(observation_path, scenario, progress=False):
     a = np.stack([ft.amplitudes for ft in fits])  # (P, O, L, K)
     cov = np.stack([ft.covariance for ft in fits])
     a_nn = np.stack([ft.amplitudes_nonneg for ft in fits])
+    dust_a = np.stack([ft.dust_amplitude for ft in fits])  # (P, O, L)
+    dust_s = np.stack([ft.dust_sigma for ft in fits])
     dust_unit = np.stack([templates.dust_per_unit[p][templates.ray_index] for p in range(len(fits))])
-    dust_excess = a_nn[..., -1][..., None] * dust_unit  # (P, O, L, B)
+    dust_excess = np.stack([ft.dust_amplitude_nonneg for ft in fits])[..., None] * dust_unit  # (P, O, L, B)
     zod_fit = a_nn[..., 0][..., None] * zod[None]
     if sep.free_colour_slope:
         zod_fit = zod_fit + a_nn[..., 1][..., None] * zod[None] * np.log(wl / REFERENCE_WAVELENGTH_NM)
-    sig = a[..., -1] / np.sqrt(cov[..., -1, -1])
+    sig = dust_a / dust_s
     blue, red = sep.blue_band_nm, sep.red_band_nm
     POL = ("population", "observation", "line_of_sight")
     params = list(fits[0].parameter_names)
@@ -489,10 +516,10 @@ def separate_file(observation_path, scenario, progress=False):
             "amplitude": (POL + ("parameter",), a, {"units": "1", "long_name": "unconstrained fitted amplitudes (zodiacal "
                                                     "in units of the model, dust in units of the hypothesised density)"}),
             "amplitude_covariance": (POL + ("parameter", "parameter_2"), cov, {"units": "1", "long_name": "covariance of the fitted amplitudes"}),
-            "amplitude_nonnegative": (POL + ("parameter",), a_nn, {"units": "1", "long_name": "fitted amplitudes with the dust amplitude constrained >= 0"}),
-            "dust_amplitude": (POL, a[..., -1], {"units": "1", "long_name": "unconstrained dust amplitude (multiple of the hypothesised density)"}),
-            "dust_amplitude_uncertainty": (POL, np.sqrt(cov[..., -1, -1]), {"units": "1", "long_name": "1-sigma uncertainty of the dust amplitude (zodiacal terms profiled)"}),
-            "surface_density_estimate_cm3": (POL, a[..., -1] * n0[:, None, None], {"units": "cm-3", "long_name": "estimated density normalisation (unconstrained)"}),
+            "amplitude_nonnegative": (POL + ("parameter",), a_nn, {"units": "1", "long_name": "fitted amplitudes with the dust amplitude(s) constrained >= 0"}),
+            "dust_amplitude": (POL, dust_a, {"units": "1", "long_name": "unconstrained dust amplitude (multiple of the hypothesised density)"}),
+            "dust_amplitude_uncertainty": (POL, dust_s, {"units": "1", "long_name": "1-sigma uncertainty of the dust amplitude (zodiacal terms, and in a joint fit the other populations, profiled)"}),
+            "surface_density_estimate_cm3": (POL, dust_a * n0[:, None, None], {"units": "cm-3", "long_name": "estimated density normalisation (unconstrained)"}),
             "dust_excess_significance": (POL, sig, {"units": "1", "long_name": "dust excess significance in sigma (amplitude / uncertainty)"}),
             "dust_excess_radiance": (POL + ("wavelength_nm",), dust_excess, {"units": RADIANCE_UNITS, "long_name": "fitted dust component (amplitude >= 0)"}),
             "zodiacal_fit_radiance": (POL + ("wavelength_nm",), zod_fit, {"units": RADIANCE_UNITS, "long_name": "fitted zodiacal-light component"}),
@@ -529,6 +556,7 @@ def separate_file(observation_path, scenario, progress=False):
                "observation_file": str(observation_path), "scenario": scenario.text,
                "blue_band_nm": list(blue), "red_band_nm": list(red),
                "masked_windows_nm": str(list(sep.mask_nm)), "free_colour_slope": int(sep.free_colour_slope),
+               "joint_fit": int(sep.joint_fit),
                "ignored_nan_bins": spectra.n_nan, "ignored_masked_bins": spectra.n_file_masked,
                "surface_views_left_out": int(np.sum(~limb_view))},
     )

@@ -58,7 +58,7 @@ def detectability(scenario, detection_sigma: float):
     """Minimum detectable density and related figures for one scenario; arrays over populations."""
     from dustrt.instrument import expected_counts
     from dustrt.observe import binned_limb
-    from dustrt.separate import colour_ratio, design_matrix, fit_mask, fit_spectra
+    from dustrt.separate import colour_ratio, design_matrix, fit_mask, fit_spectra, zodiacal_parameter_count
 
     scenario.require("limb", "instrument")
     inst = scenario.instrument.instrument
@@ -71,16 +71,22 @@ def detectability(scenario, detection_sigma: float):
     sep = scenario.separation
     out = {k: [] for k in OUTPUT_KEYS}
     zod_sum = b.zodiacal_radiance.sum(axis=0)
-    for p, pop in enumerate(scenario.populations):
-        dust = b.population_radiance[p]  # (L, B) at the hypothesised density
-        x = design_matrix(b.zodiacal_radiance, dust, wl, sep.free_colour_slope)  # (L, K, B)
+
+    def fit_covariance(dust):
         # Expected covariance of the fit (data values do not enter it).  The same solver as
         # the separation: views that end on the surface (no zodiacal light there, surface not
         # modelled) or whose dust and zodiacal templates are degenerate come back NaN and are
         # left out, exactly as `dustrt separate` and `dustrt limit` leave them out.
-        cov = fit_spectra(np.zeros(dust.shape), np.where(use, sigma, 1.0), x, use & ~hits[:, None],
-                          nonnegative=False)[1]
-        var_amp = cov[:, -1, -1]
+        x = design_matrix(b.zodiacal_radiance, dust, wl, sep.free_colour_slope)  # (L, K, B)
+        return fit_spectra(np.zeros(x.shape[:1] + x.shape[-1:]), np.where(use, sigma, 1.0), x,
+                           use & ~hits[:, None], nonnegative=False)[1]
+
+    if sep.joint_fit:  # every population's amplitude profiled over the others'
+        k0 = zodiacal_parameter_count(scenario)
+        joint_cov = fit_covariance(b.population_radiance)
+    for p, pop in enumerate(scenario.populations):
+        dust = b.population_radiance[p]  # (L, B) at the hypothesised density
+        var_amp = joint_cov[:, k0 + p, k0 + p] if sep.joint_fit else fit_covariance(dust)[:, -1, -1]
         ok = np.isfinite(var_amp) & (var_amp > 0) & ~hits
         inv = np.where(ok, 1.0 / np.where(ok, var_amp, 1.0), 0.0).sum()
         n0 = reference_density_cm3(pop.density)
