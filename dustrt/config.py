@@ -472,72 +472,20 @@ def scenario_from_dict(raw: dict, source: str = "<scenario>", base_dir: Path | N
         if len(set(names)) != len(names):
             raise top.error("population", f"population names must be unique, got {names}")
 
-    with problems.guard():
-        body = top.subtable("body")
-        if body is not None:
-            kwargs["body_radius_km"] = body.number("radius_km", MOON_RADIUS_KM, low=1.0, high=1e5)
-            body.finish("radius_km")
-
-    with problems.guard():
-        sun = top.subtable("sun")
-        if sun is not None:
-            kwargs["sun_distance_au"] = sun.number("distance_au", 1.0, low=0.05, high=50.0)
-            spec = sun.string("spectrum", "builtin")
-            kwargs["solar_spectrum"] = spec if spec == "builtin" else sun.path("spectrum")
-            sun.finish("distance_au, spectrum")
-
-    with problems.guard():
-        obs = top.subtable("observer")
-        if obs is not None:
-            kwargs["observer"] = _observer(obs)
-    with problems.guard():
-        view = top.subtable("view")
-        if view is not None:
-            kwargs["view"] = _view(view, kwargs.get("observer"))
-
-    with problems.guard():
-        integ = top.subtable("integration")
-        if integ is not None:
-            kwargs["integration"] = Integration(
-                top_altitude_km=integ.number("top_altitude_km", 300.0, low=0.0, high=1e5, low_open=True),
-                relative_tolerance=integ.number("relative_tolerance", 1e-4, low=1e-10, high=0.1),
-                extinction=integ.boolean("extinction", True),
-            )
-            integ.finish("top_altitude_km, relative_tolerance, extinction")
-
-    with problems.guard():
-        bg = top.subtable("background")
-        if bg is not None:
-            kwargs["background"] = Background(
-                zodiacal_light=bg.boolean("zodiacal_light", True),
-                zodiacal_scale=bg.number("zodiacal_scale", 1.0, low=0.0, high=100.0),
-                dark_surface_radiance_factor=bg.number("dark_surface_radiance_factor", 0.0, low=0.0, high=1.0),
-            )
-            bg.finish("zodiacal_light, zodiacal_scale, dark_surface_radiance_factor")
-
-    with problems.guard():
-        inst = top.subtable("instrument")
-        if inst is not None:
-            kwargs["instrument"] = _instrument(inst)
-
-    with problems.guard():
-        sep = top.subtable("separation")
-        if sep is not None:
-            kwargs["separation"] = _separation(sep)
-
-    with problems.guard():
-        lim = top.subtable("limits")
-        if lim is not None:
-            kwargs["limits"] = Limits(
-                confidence=lim.number("confidence", 0.95, low=0.5, high=0.9999),
-                method=lim.string("method", "feldman-cousins", choices=("feldman-cousins", "bayesian-flat")),
-            )
-            lim.finish("confidence, method")
-
-    with problems.guard():
-        sw = top.subtable("sweep")
-        if sw is not None:
-            kwargs["sweep"] = _sweep(sw, raw)
+    # the optional tables: each read on its own, so a problem in one does not hide another's
+    readers = {
+        "body": _body, "sun": _sun,
+        "observer": lambda t: {"observer": _observer(t)}, "view": lambda t: {"view": _view(t)},
+        "integration": _integration, "background": _background,
+        "instrument": lambda t: {"instrument": _instrument(t)},
+        "separation": lambda t: {"separation": _separation(t)},
+        "limits": _limits, "sweep": lambda t: {"sweep": _sweep(t, raw)},
+    }
+    for name, read in readers.items():
+        with problems.guard():
+            table = top.subtable(name)
+            if table is not None:
+                kwargs.update(read(table))
 
     with problems.guard():
         top.finish(", ".join(TOP_LEVEL))
@@ -551,6 +499,49 @@ def scenario_from_dict(raw: dict, source: str = "<scenario>", base_dir: Path | N
             check(scenario, top)
     problems.raise_if_any()
     return scenario
+
+
+def _body(t: _Table) -> dict:
+    radius = t.number("radius_km", MOON_RADIUS_KM, low=1.0, high=1e5)
+    t.finish("radius_km")
+    return {"body_radius_km": radius}
+
+
+def _sun(t: _Table) -> dict:
+    distance = t.number("distance_au", 1.0, low=0.05, high=50.0)
+    spec = t.string("spectrum", "builtin")
+    spectrum = spec if spec == "builtin" else t.path("spectrum")
+    t.finish("distance_au, spectrum")
+    return {"sun_distance_au": distance, "solar_spectrum": spectrum}
+
+
+def _integration(t: _Table) -> dict:
+    integ = Integration(
+        top_altitude_km=t.number("top_altitude_km", 300.0, low=0.0, high=1e5, low_open=True),
+        relative_tolerance=t.number("relative_tolerance", 1e-4, low=1e-10, high=0.1),
+        extinction=t.boolean("extinction", True),
+    )
+    t.finish("top_altitude_km, relative_tolerance, extinction")
+    return {"integration": integ}
+
+
+def _background(t: _Table) -> dict:
+    bg = Background(
+        zodiacal_light=t.boolean("zodiacal_light", True),
+        zodiacal_scale=t.number("zodiacal_scale", 1.0, low=0.0, high=100.0),
+        dark_surface_radiance_factor=t.number("dark_surface_radiance_factor", 0.0, low=0.0, high=1.0),
+    )
+    t.finish("zodiacal_light, zodiacal_scale, dark_surface_radiance_factor")
+    return {"background": bg}
+
+
+def _limits(t: _Table) -> dict:
+    lim = Limits(
+        confidence=t.number("confidence", 0.95, low=0.5, high=0.9999),
+        method=t.string("method", "feldman-cousins", choices=("feldman-cousins", "bayesian-flat")),
+    )
+    t.finish("confidence, method")
+    return {"limits": lim}
 
 
 def _wavelengths(wl_t: _Table) -> np.ndarray:
@@ -760,7 +751,7 @@ def _observer(t: _Table) -> Observer:
     return Observer(altitude_km=alt, latitude_deg=lat, local_time_h=lt)
 
 
-def _view(t: _Table, observer: Observer | None) -> View:
+def _view(t: _Table) -> View:
     az = t.number("azimuth_deg", 0.0, low=-360.0, high=360.0)
     if t.has("directions"):
         if t.has("tangent_altitudes_km"):
