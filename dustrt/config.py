@@ -56,6 +56,9 @@ class _Problems:
             self.keys.add(exc.key)
         self.messages.append(str(exc))
 
+    def has(self, key: str) -> bool:
+        return key in self.keys
+
     @contextmanager
     def guard(self):
         """Record a problem raised inside and carry on with the next part of the scenario."""
@@ -398,12 +401,6 @@ class Scenario:
             missing("instrument", "table is required for this command")
         problems.raise_if_any()
 
-    def require_limb(self) -> None:
-        self.require("limb")
-
-    def require_instrument(self) -> None:
-        self.require("instrument")
-
 
 TOP_LEVEL = ("wavelengths", "optics", "population", "body", "sun", "observer", "view",
              "integration", "background", "instrument", "separation", "limits", "sweep")
@@ -468,7 +465,7 @@ def scenario_from_dict(raw: dict, source: str = "<scenario>", base_dir: Path | N
         for i, p in enumerate(pops_raw):
             with problems.guard():
                 populations.append(_population(top.child(p, f"population[{i}]")))
-            names = [p.get("name") for p in pops_raw if isinstance(p.get("name"), str)]  # also of bad populations
+        names = [p.get("name") for p in pops_raw if isinstance(p.get("name"), str)]  # also of bad populations
         if len(set(names)) != len(names):
             raise top.error("population", f"population names must be unique, got {names}")
 
@@ -494,7 +491,7 @@ def scenario_from_dict(raw: dict, source: str = "<scenario>", base_dir: Path | N
     # checks across tables, once every table is valid on its own
     scenario = Scenario(source=source, text=text, raw=raw, base_dir=base_dir,
                         populations=tuple(populations), **kwargs)
-    for check in (_check_view_against_observer, _check_spectral_coverage, _check_radius_sweep):
+    for check in (_check_view_against_observer, _check_spectral_coverage, _check_radius_sweep, _check_joint_fit):
         with problems.guard():
             check(scenario, top)
     problems.raise_if_any()
@@ -564,6 +561,20 @@ def _wavelengths(wl_t: _Table) -> np.ndarray:
     return wavelength
 
 
+def _check_joint_fit(s: Scenario, top: _Table) -> None:
+    if not s.separation.joint_fit:
+        return
+    if len(s.populations) > MAX_JOINT_POPULATIONS:
+        raise top.error("separation.joint_fit", f"a joint fit takes at most {MAX_JOINT_POPULATIONS} populations "
+                                                f"(its non-negative solver enumerates their subsets); got "
+                                                f"{len(s.populations)}")
+    if len(s.populations) > 1 and s.sweep is not None and any(k == "radius_um" for k, _ in s.sweep.axes):
+        raise top.error("sweep.radius_um", "gives every population the same radius, which makes the populations' "
+                                           "templates (nearly) proportional and a joint fit degenerate; with "
+                                           "separation.joint_fit sweep 'population.NAME.size.radius_um' (or "
+                                           "median_radius_um) instead")
+
+
 def _check_radius_sweep(s: Scenario, top: _Table) -> None:
     if s.sweep is None or not any(k == "radius_um" for k, _ in s.sweep.axes):
         return
@@ -576,14 +587,19 @@ def _check_radius_sweep(s: Scenario, top: _Table) -> None:
 
 
 def _check_spectral_coverage(s: Scenario, top: _Table) -> None:
-    """Materials, the solar spectrum and the instrument bins against the model wavelengths."""
+    """Materials, the solar spectrum and the instrument bins against the model wavelengths
+    (each problem recorded, so all are reported together)."""
     wl = s.wavelength_nm
+
+    def problem(key, message):
+        top.problems.add(top.error(key, message))
+
     for i, p in enumerate(s.populations):
         lo, hi = p.material.wavelength_range_nm
         if wl[0] < lo or wl[-1] > hi:
-            raise top.error(f"population[{i}].material",
-                            f"{p.material.name!r} ({p.material.source or 'table'}) covers {lo:g}-{hi:g} nm; "
-                            f"the [wavelengths] grid {wl[0]:g}-{wl[-1]:g} nm reaches outside it")
+            problem(f"population[{i}].material",
+                    f"{p.material.name!r} ({p.material.source or 'table'}) covers {lo:g}-{hi:g} nm; "
+                    f"the [wavelengths] grid {wl[0]:g}-{wl[-1]:g} nm reaches outside it")
     needs_sun = s.observer is not None or s.instrument is not None
     if needs_sun:
         from dustrt.sun import solar_table
@@ -591,30 +607,36 @@ def _check_spectral_coverage(s: Scenario, top: _Table) -> None:
         try:
             tw, _ = solar_table(s.solar_spectrum)
         except ValueError as exc:
-            raise top.error("sun.spectrum", str(exc)) from None
-        if wl[0] < tw[0] or wl[-1] > tw[-1]:
-            raise top.error("sun.spectrum", f"the solar spectrum covers {tw[0]:g}-{tw[-1]:g} nm; the "
-                                            f"[wavelengths] grid {wl[0]:g}-{wl[-1]:g} nm reaches outside it")
+            problem("sun.spectrum", str(exc))
+            tw = None
+        if tw is not None and (wl[0] < tw[0] or wl[-1] > tw[-1]):
+            problem("sun.spectrum", f"the solar spectrum covers {tw[0]:g}-{tw[-1]:g} nm; the "
+                                    f"[wavelengths] grid {wl[0]:g}-{wl[-1]:g} nm reaches outside it")
     if s.instrument is not None:
         inst = s.instrument.instrument
         if wl.size < 2:
-            raise top.error("wavelengths", "needs at least two wavelengths when an [instrument] is given")
+            problem("wavelengths", "needs at least two wavelengths when an [instrument] is given")
+            return
         # the line-spread function reaches ~1.4 FWHM beyond each bin edge (99.9 % of a Gaussian)
         reach = 0.5 * inst.bin_width_nm + 1.5 * inst.resolution_fwhm_nm
         need_lo = inst.bin_centres_nm[0] - reach
         need_hi = inst.bin_centres_nm[-1] + reach
         if need_lo < wl[0] or need_hi > wl[-1]:
-            raise top.error("instrument.wavelength_min_nm" if need_lo < wl[0] else "instrument.wavelength_max_nm",
-                            f"the instrument bins and line-spread function need model wavelengths "
-                            f"{need_lo:g}-{need_hi:g} nm; [wavelengths] covers {wl[0]:g}-{wl[-1]:g} nm "
-                            "(widen [wavelengths] or narrow the instrument range)")
+            problem("instrument.wavelength_min_nm" if need_lo < wl[0] else "instrument.wavelength_max_nm",
+                    f"the instrument bins and line-spread function need model wavelengths "
+                    f"{need_lo:g}-{need_hi:g} nm; [wavelengths] covers {wl[0]:g}-{wl[-1]:g} nm "
+                    "(widen [wavelengths] or narrow the instrument range)")
 
 
 def _population(t: _Table) -> Population:
     """One [[population]]; its material, size and density are each checked even if another is bad."""
-    name = t.string("name", _REQUIRED)
-    if not name or not name.replace("_", "").replace("-", "").isalnum():
-        raise t.error("name", f"must be a non-empty name of letters, digits, '-' or '_', got {name!r}")
+    name = None
+    with t.problems.guard():  # a bad name does not hide the rest of the population
+        name = t.string("name", _REQUIRED)
+        if not name or not name.replace("_", "").replace("-", "").isalnum():
+            raise t.error("name", f"must be a non-empty name of letters, digits, '-' or '_', got {name!r}")
+    if name is None or t.problems.has(f"{t.key}.name"):
+        t.bad = True
     parts: dict[str, Any] = {}
     with t.problems.guard():
         parts["material"] = _material(t)
@@ -687,6 +709,9 @@ def _size(st: _Table):
     except ValueError as exc:
         raise st.error(None, str(exc)) from None
 
+
+#: Populations a joint fit may hold (dustrt.lsq enumerates subsets of the constrained amplitudes).
+MAX_JOINT_POPULATIONS = 8
 
 #: Adjacent-node density ratio above which a table's linear interpolation is flagged (25 % at mid-layer).
 COARSE_TABLE_RATIO = 4.0
@@ -815,11 +840,13 @@ def _instrument(t: _Table):
     kw["wavelength_max_nm"] = t.number("wavelength_max_nm", _REQUIRED, low=100.0, high=5000.0)
     thr = t.raw("throughput", 1.0)
     if isinstance(thr, str):
-        p = t.path("throughput")
-        try:
-            kw["throughput"] = inst_mod.read_throughput_csv(p)
-        except ValueError as exc:
-            raise t.error("throughput", str(exc)) from None
+        with t.problems.guard():  # a bad throughput file does not hide the other keys
+            try:
+                kw["throughput"] = inst_mod.read_throughput_csv(t.path("throughput"))
+            except ValueError as exc:
+                raise t.error("throughput", str(exc)) from None
+        if "throughput" not in kw:
+            t.bad = True
     else:
         kw["throughput"] = t.number("throughput", 1.0, low=0.0, high=1.0, low_open=True)
     kw["read_noise_e"] = t.number("read_noise_e", 0.0, low=0.0, high=1e6)
@@ -852,7 +879,8 @@ def _band(t: _Table, name: str, default):
         return default
     arr = t.number_list(name, low=100.0, high=5000.0, min_len=2)
     if arr.size != 2 or arr[1] <= arr[0]:
-        raise t.error(name, f"must be [lower_nm, upper_nm] with lower < upper, got {arr.tolist()}")
+        t.report(name, f"must be [lower_nm, upper_nm] with lower < upper, got {arr.tolist()}")
+        return default
     return (float(arr[0]), float(arr[1]))
 
 
@@ -861,12 +889,14 @@ def _band_list(t: _Table, name: str) -> tuple:
         return ()
     v = t.raw(name)
     if not isinstance(v, list) or not all(isinstance(b, list) for b in v):
-        raise t.error(name, "must be a list of [lower_nm, upper_nm] pairs")
+        t.report(name, "must be a list of [lower_nm, upper_nm] pairs")
+        return ()
     out = []
     for i, b in enumerate(v):
         if len(b) != 2 or any(isinstance(x, bool) or not isinstance(x, (int, float)) for x in b) \
                 or not (100 <= b[0] < b[1] <= 5000):
-            raise t.error(f"{name}[{i}]", f"must be [lower_nm, upper_nm] with 100 <= lower < upper <= 5000, got {b!r}")
+            t.report(f"{name}[{i}]", f"must be [lower_nm, upper_nm] with 100 <= lower < upper <= 5000, got {b!r}")
+            continue
         out.append((float(b[0]), float(b[1])))
     return tuple(out)
 
@@ -895,7 +925,9 @@ def _sweep(t: _Table, raw: dict) -> Sweep:
                 t.bad, bad_before = False, t.bad
                 if key != "radius_um":
                     try:
-                        resolve_dotted(raw, key)
+                        if key.startswith("sweep."):
+                            raise KeyError("the [sweep] table's own keys are not swept")
+                        locate_key(raw, key)
                     except KeyError as exc:
                         t.used.add(key)
                         raise t.error(key, f"is not a numeric key of this scenario ({exc.args[0]}); use a dotted "
@@ -943,18 +975,13 @@ def _locate(raw: dict, dotted: str):
     return node, last
 
 
-def resolve_dotted(raw: dict, dotted: str) -> float:
-    """The numeric value at a dotted key (KeyError if absent or not a number)."""
+def locate_key(raw: dict, dotted: str) -> None:
+    """KeyError unless ``dotted`` names a key of the scenario, or an optional key its table may hold.
+
+    The value's type is left to the table's own reader (a bad base value is reported there once)."""
     node, last = _locate(raw, dotted)
-    if last not in node:
-        # an optional key that takes a default is still sweepable if its table exists
-        if last not in _KNOWN_KEYS:
-            raise KeyError(f"no key {last!r} (misspelt?)")
-        return math.nan
-    v = node[last]
-    if isinstance(v, bool) or not isinstance(v, (int, float)):
-        raise KeyError(f"{dotted!r} is not a number")
-    return float(v)
+    if last not in node and last not in _KNOWN_KEYS:
+        raise KeyError(f"no key {last!r} (misspelt?)")
 
 
 def with_values(raw: dict, values: dict[str, float]) -> dict:

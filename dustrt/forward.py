@@ -38,7 +38,7 @@ def scenario_geometry(scenario) -> LimbGeometry:
     """The observer position and look directions the scenario asks for."""
     from dustrt import geometry
 
-    scenario.require_limb()
+    scenario.require("limb")
     ob = scenario.observer
     r = scenario.body_radius_km
     pos = geometry.observer_position_km(r, ob.altitude_km, ob.latitude_deg, ob.local_time_h)

@@ -78,7 +78,7 @@ def binned_limb(scenario, geometry=None, bin_centres_nm=None, bin_width_nm=None,
     from dustrt.sun import solar_irradiance
 
     if bin_centres_nm is None or bin_width_nm is None or fwhm_nm is None:
-        scenario.require_instrument()
+        scenario.require("instrument")
         inst = scenario.instrument.instrument
         centres = inst.bin_centres_nm if bin_centres_nm is None else np.asarray(bin_centres_nm, dtype=float)
         width = inst.bin_width_nm if bin_width_nm is None else float(bin_width_nm)

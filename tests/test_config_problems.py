@@ -156,3 +156,66 @@ def test_sweep_keys_and_grid_points_are_all_reported(tmp_path, capsys):
     assert "6 of 8 grid points give an invalid scenario" in err
     assert "key 'instrument.frames': must lie in [1, 1e+07], got -3 (at 4 grid point(s)" in err
     assert "key 'instrument.integration_time_s': must lie in (0, 1e+07], got -10.0 (at 4 grid point(s)" in err
+
+
+def _plan_text():
+    from pathlib import Path
+
+    return (Path(__file__).resolve().parents[1] / "configs" / "plan_grain_size.toml").read_text()
+
+
+def test_bands_paths_names_and_coverage_do_not_hide_other_problems(tmp_path):
+    text = _plan_text().replace("[separation]", '[separation]\nblue_band_nm = [400, "a"]\njoint_fit = "yes"\n'
+                                                'frobnicate = 1')
+    text = text.replace("throughput = 0.1 ", 'throughput = "missing.csv" ').replace(
+        "read_noise_e = 10.0", "read_noise_e = -1.0")
+    text = text.replace('name = "lofted"', 'name = "bad name!"').replace(
+        "radius_um = 0.1 }", "radius_um = -0.1 }")
+    path = tmp_path / "holes.toml"
+    path.write_text(text)
+    with pytest.raises(ScenarioError) as info:
+        load_scenario(path)
+    text = str(info.value)
+    for key in ("separation.blue_band_nm", "separation.joint_fit", "separation.frobnicate",
+                "instrument.throughput", "instrument.read_noise_e", "population[0].name",
+                "population[0].size.radius_um"):
+        assert f"key '{key}'" in text, key
+    # cross-table coverage: every problem at once
+    cover = _plan_text().replace("start_nm = 250.0", "start_nm = 150.0").replace(
+        "wavelength_max_nm = 790.0", "wavelength_max_nm = 900.0")
+    path.write_text(cover)
+    with pytest.raises(ScenarioError) as info:
+        load_scenario(path)
+    for key in ("population[0].material", "sun.spectrum", "instrument.wavelength_max_nm"):
+        assert f"key '{key}'" in str(info.value), key
+
+
+def test_sweep_key_rules(tmp_path):
+    path = tmp_path / "s.toml"
+    # a bad base value is reported once, by its own table, not again as an unsweepable key
+    path.write_text(_plan_text().replace("local_time_h = 5.0", 'local_time_h = "x"').replace(
+        "detection_sigma = 5.0", 'detection_sigma = 5.0\n"observer.local_time_h" = [5.0, 5.5]'))
+    with pytest.raises(ScenarioError) as info:
+        load_scenario(path)
+    assert info.value.problems == [p for p in info.value.problems if "observer.local_time_h" in p]
+    assert len(info.value.problems) == 1
+    # the [sweep] table's own keys are not swept
+    path.write_text(_plan_text().replace("detection_sigma = 5.0", 'detection_sigma = 5.0\n"sweep.detection_sigma" = [3.0]'))
+    with pytest.raises(ScenarioError, match=r"key 'sweep.sweep.detection_sigma'.*not swept"):
+        load_scenario(path)
+
+
+def test_joint_fit_rules(tmp_path):
+    second = ('\n[[population]]\nname = "other"\nmaterial = "mare_basaltic_analogue"\n'
+              'size = { distribution = "monodisperse", radius_um = 0.3 }\n'
+              'density = { profile = "exponential", surface_density_cm3 = 1e-6, scale_height_km = 5.0 }\n')
+    text = _plan_text().replace("free_colour_slope = true ", "free_colour_slope = true\njoint_fit = true ")
+    path = tmp_path / "j.toml"
+    path.write_text(text.replace("[background]", second + "\n[background]"))
+    with pytest.raises(ScenarioError, match=r"key 'sweep.radius_um'.*joint fit degenerate"):
+        load_scenario(path)
+    many = "".join(second.replace('"other"', f'"p{i}"') for i in range(8))
+    path.write_text(text.replace("[background]", many + "\n[background]").replace(
+        'radius_um = { start = 0.01, stop = 1.0, num = 12, spacing = "log" }', ""))
+    with pytest.raises(ScenarioError, match=r"key 'separation.joint_fit': a joint fit takes at most 8"):
+        load_scenario(path)
