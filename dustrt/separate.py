@@ -353,6 +353,54 @@ def fit_spectra(data, sigma, templates, use_mask, nonnegative: bool = True, nonn
     return a, cov, a_nn, res
 
 
+def joint_fit_spectra(data, sigma, zodiacal, dust, wavelength_nm, free_colour_slope: bool, use_mask,
+                      nonnegative: bool = True):
+    """Fit spectra (..., B) with the zodiacal terms and every population's dust template (P, ..., B).
+
+    A template that is zero on a spectrum's used bins (no such dust along that view) is left
+    out of that spectrum's fit, so it does not make the others degenerate; its amplitude,
+    covariance rows and non-negative amplitude are NaN there.  Returns (amplitudes (..., K),
+    covariance (..., K, K), non-negative amplitudes or None, chi2, dof, n_used) with
+    K = zodiacal terms + P.
+    """
+    k0 = 2 if free_colour_slope else 1
+    n_pop = dust.shape[0]
+    k = k0 + n_pop
+    shape = np.shape(data)[:-1]
+    n_bins = np.shape(data)[-1]
+    y = np.reshape(data, (-1, n_bins))
+    sig = np.reshape(np.broadcast_to(sigma, np.shape(data)), (-1, n_bins))
+    use = np.reshape(np.broadcast_to(use_mask, np.shape(data)), (-1, n_bins))
+    zod = np.reshape(np.broadcast_to(zodiacal, np.shape(data)), (-1, n_bins))
+    dst = np.reshape(np.broadcast_to(dust, (n_pop,) + np.shape(data)), (n_pop, -1, n_bins))
+    present = np.any((dst != 0) & use[None], axis=-1)  # (P, N)
+    code = np.sum(present.astype(np.int64) << np.arange(n_pop)[:, None], axis=0)
+    n = y.shape[0]
+    a = np.full((n, k), np.nan)
+    cov = np.full((n, k, k), np.nan)
+    a_nn = np.full((n, k), np.nan) if nonnegative else None
+    chi2 = np.full(n, np.nan)
+    dof = np.zeros(n, dtype=int)
+    n_used = use.sum(axis=-1)
+    for c in np.unique(code):
+        rows = np.flatnonzero(code == c)
+        pops = [q for q in range(n_pop) if (c >> q) & 1]
+        cols = np.array(list(range(k0)) + [k0 + q for q in pops])
+        x = design_matrix(zod[rows], dst[pops][:, rows] if pops else np.zeros((0, rows.size, n_bins)),
+                          wavelength_nm, free_colour_slope)
+        constrained = list(range(k0, k0 + len(pops)))
+        ra, rc, rn, res = fit_spectra(y[rows], sig[rows], x, use[rows], nonnegative=nonnegative and bool(pops),
+                                      nonneg_index=constrained or -1)
+        a[np.ix_(rows, cols)] = ra
+        cov[np.ix_(rows, cols, cols)] = rc
+        if nonnegative:
+            a_nn[np.ix_(rows, cols)] = rn if rn is not None else ra
+        chi2[rows], dof[rows] = res.chi2, res.dof
+    return (a.reshape(shape + (k,)), cov.reshape(shape + (k, k)),
+            None if a_nn is None else a_nn.reshape(shape + (k,)), chi2.reshape(shape), dof.reshape(shape),
+            n_used.reshape(shape))
+
+
 def check_hypotheses(scenario, command: str = "this analysis") -> None:
     """Every population needs a density profile with a positive normalisation (it sets the template)."""
     for i, p in enumerate(scenario.populations):
@@ -396,12 +444,12 @@ def separate(scenario, spectra: ObservedSpectra, templates: Templates | None = N
     if sep.joint_fit:
         # one fit with every population's template: each amplitude is profiled over the others
         dust = templates.dust_per_unit[:, templates.ray_index]  # (P, O, L, B)
-        x = design_matrix(zod, dust, spectra.wavelength_nm, sep.free_colour_slope)
+        a, cov, a_nn, chi2, dof, n_used = joint_fit_spectra(data, sigma, zod, dust, spectra.wavelength_nm,
+                                                            sep.free_colour_slope, use)
         k0 = len(zod_names)
-        a, cov, a_nn, res = fit_spectra(data, sigma, x, use, nonneg_index=list(range(k0, k0 + n_pop)))
         names = zod_names + tuple(f"dust_amplitude_{p.name}" for p in scenario.populations)
-        return [SeparationFit(amplitudes=a, covariance=cov, amplitudes_nonneg=a_nn, chi2=res.chi2, dof=res.dof,
-                              n_used=res.n_used, parameter_names=names, dust_index=k0 + p) for p in range(n_pop)]
+        return [SeparationFit(amplitudes=a, covariance=cov, amplitudes_nonneg=a_nn, chi2=chi2, dof=dof,
+                              n_used=n_used, parameter_names=names, dust_index=k0 + p) for p in range(n_pop)]
     for p in range(n_pop):
         dust = templates.dust_per_unit[p][templates.ray_index]
         x = design_matrix(zod, dust, spectra.wavelength_nm, sep.free_colour_slope)

@@ -58,7 +58,8 @@ def detectability(scenario, detection_sigma: float):
     """Minimum detectable density and related figures for one scenario; arrays over populations."""
     from dustrt.instrument import expected_counts
     from dustrt.observe import binned_limb
-    from dustrt.separate import colour_ratio, design_matrix, fit_mask, fit_spectra, zodiacal_parameter_count
+    from dustrt.separate import (colour_ratio, design_matrix, fit_mask, fit_spectra, joint_fit_spectra,
+                                 zodiacal_parameter_count)
 
     scenario.require("limb", "instrument")
     inst = scenario.instrument.instrument
@@ -83,7 +84,9 @@ def detectability(scenario, detection_sigma: float):
 
     if sep.joint_fit:  # every population's amplitude profiled over the others'
         k0 = zodiacal_parameter_count(scenario)
-        joint_cov = fit_covariance(b.population_radiance)
+        joint_cov = joint_fit_spectra(np.zeros(b.zodiacal_radiance.shape), np.where(use, sigma, 1.0),
+                                      b.zodiacal_radiance, b.population_radiance, wl, sep.free_colour_slope,
+                                      use & ~hits[:, None], nonnegative=False)[1]
     for p, pop in enumerate(scenario.populations):
         dust = b.population_radiance[p]  # (L, B) at the hypothesised density
         var_amp = joint_cov[:, k0 + p, k0 + p] if sep.joint_fit else fit_covariance(dust)[:, -1, -1]

@@ -482,3 +482,30 @@ def test_joint_detectability_is_never_better_than_alone(tmp_path):
     j, s = detectability(sc, 5.0), detectability(alone, 5.0)
     assert np.all(j["minimum_detectable_density_cm3"] >= s["minimum_detectable_density_cm3"] * (1 - 1e-12))
     assert np.all(j["minimum_detectable_density_cm3"] > s["minimum_detectable_density_cm3"])  # templates overlap
+
+
+def test_joint_fit_leaves_out_a_population_absent_from_a_view(tmp_path):
+    # A second population confined below 8 km (a table, zero above its last node) has no light on
+    # the 10 and 20 km views: there the joint fit is the single fit of "fine" (same design, to
+    # rounding), the absent population's amplitude is NaN, and "fine" is not lost with it.
+    import dataclasses
+
+    from dustrt.separate import read_observation, separate
+
+    rows = "\n".join(f"{h},{d},1e-6" for h in (0.0, 4.0, 8.0) for d in (-500.0, 500.0))
+    (tmp_path / "low.csv").write_text("# test table\naltitude_km,terminator_distance_km,density_cm3\n" + rows + "\n")
+    low = ('\n[[population]]\nname = "low"\nmaterial = "highland_anorthositic_analogue"\n'
+           'size = { distribution = "monodisperse", radius_um = 0.3 }\n'
+           'density = { profile = "table", file = "low.csv" }\n')
+    _, obs, _ = _separate(tmp_path, "1e-7", 4, seed=8)
+    sc, path = scenario(tmp_path, n0="1e-7", extra=low, name="joint.toml")
+    path.write_text(path.read_text().replace("[separation]", "[separation]\njoint_fit = true"))
+    sc = load_scenario(path)
+    spectra = read_observation(obs, sc)
+    fine, lowfit = separate(sc, spectra)
+    assert np.all(np.isfinite(fine.dust_amplitude))
+    assert np.all(np.isfinite(lowfit.dust_amplitude[:, 0])) and np.all(np.isnan(lowfit.dust_amplitude[:, 1:]))
+    alone = separate(dataclasses.replace(sc, separation=dataclasses.replace(sc.separation, joint_fit=False)),
+                     spectra)[0]
+    np.testing.assert_allclose(fine.dust_amplitude[:, 1:], alone.dust_amplitude[:, 1:], rtol=1e-9)
+    np.testing.assert_allclose(fine.dust_sigma[:, 1:], alone.dust_sigma[:, 1:], rtol=1e-9)
