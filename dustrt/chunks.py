@@ -53,6 +53,8 @@ __all__ = [
 
 #: Name of the manifest file inside a checkpoint directory.
 MANIFEST_NAME = "manifest.json"
+#: How to discard unusable checkpoints (API and command line).
+START_OVER = "start over without resume (dustrt sweep: --overwrite instead of --resume)"
 _FORMAT = "dustrt-chunked-sweep"
 _FORMAT_VERSION = 1
 _CHUNK_RE = re.compile(r"^chunk_(\d{6,})\.npz$")
@@ -185,9 +187,9 @@ def _read_manifest(checkpoint_dir: Path) -> dict | None:
     try:
         manifest = json.loads(path.read_text(encoding="utf-8"))
     except (OSError, ValueError) as exc:
-        raise ValueError(f"checkpoint manifest '{path}' cannot be read ({exc}); rerun with resume=False") from None
+        raise ValueError(f"checkpoint manifest '{path}' cannot be read ({exc}); {START_OVER}") from None
     if not isinstance(manifest, dict) or manifest.get("format") != _FORMAT:
-        raise ValueError(f"'{path}' is not a dustrt sweep checkpoint manifest; rerun with resume=False")
+        raise ValueError(f"'{path}' is not a dustrt sweep checkpoint manifest; {START_OVER}")
     return manifest
 
 
@@ -421,7 +423,7 @@ def run_chunked(
             raise ValueError(
                 f"checkpoint directory '{checkpoint_dir}' belongs to another sweep ("
                 + "; ".join(problems)
-                + "); use resume=False to start over or choose another checkpoint_dir"
+                + f"); {START_OVER}, or choose another output"
             )
         chunk_size = _positive_int(manifest.get("chunk_size"), f"chunk_size in '{checkpoint_dir / MANIFEST_NAME}'")
 
@@ -451,7 +453,7 @@ def run_chunked(
         if manifest is not None and manifest.get("chunk_bounds") != [list(b) for b in bounds]:
             raise ValueError(
                 f"checkpoint directory '{checkpoint_dir}' has inconsistent chunk boundaries in its manifest; "
-                "use resume=False to start over"
+                + START_OVER
             )
 
         results: dict[int, dict[str, np.ndarray]] = {}

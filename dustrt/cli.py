@@ -24,9 +24,10 @@ def _load(args, path):
 
 
 def _announce_compilation(args) -> None:
-    from dustrt.kernel_cache import kernels_cached
+    from dustrt.kernel_cache import KERNEL_MODULES, kernels_cached
 
-    if not kernels_cached():
+    needed = ("_mie_kernels",) if args.command == "optics" else KERNEL_MODULES
+    if not kernels_cached(needed):
         _say(args, "dustrt: first run: compiling the numerical kernels (15-60 s); later runs reuse them")
 
 
@@ -252,6 +253,8 @@ def _check_outputs(args) -> None:
             if value not in (None, DEMO) and Path(value).resolve() == Path(name).resolve():
                 raise ValueError(f"{what} {name}: is the input {input_name} file; choose another name")
         io.check_output_path(name, what)
+        if what == "--plot":
+            io.check_figure_format(name)
         if Path(name).exists() and not args.overwrite:
             raise ValueError(f"{what} {name}: already exists; choose another name or pass --overwrite")
 

@@ -34,6 +34,7 @@ OUTPUTS = {
     "summary.txt": "what was computed and the headline numbers",
 }
 
+SWEEP_CHECKPOINTS = "sweep.nc.chunks"  # left by an interrupted demo sweep; replaced like the outputs
 SEED = 20261202  # fixed: the demo's noise is reproducible
 HEADLINE_ALTITUDE_KM = 10.0
 HEADLINE_WAVELENGTH_NM = 400.0
@@ -58,7 +59,7 @@ def check_output_folder(out_dir, overwrite: bool) -> Path:
         raise ValueError(f"output folder {out}: exists and is not a folder")
     if not out.parent.is_dir():
         raise ValueError(f"output folder {out}: parent folder {out.parent} does not exist")
-    present = [name for name in OUTPUTS if (out / name).exists()]
+    present = [name for name in (*OUTPUTS, SWEEP_CHECKPOINTS) if (out / name).exists()]
     if present and not overwrite:
         raise ValueError(f"output folder {out}: already holds {', '.join(present)}; choose another folder "
                          "or pass --overwrite")
@@ -111,7 +112,7 @@ def run_demo(out_dir, *, overwrite: bool = False, progress: bool = True, say=pri
     write(limits, "limits.nc", "limits_figure")
 
     step(5, "detectability versus grain radius")
-    sweep_ds = run_sweep(sc, out / "sweep.nc", progress=progress)
+    sweep_ds = run_sweep(sc, out / "sweep.nc", progress=progress, overwrite=overwrite)
     io.save_figure(plots.sweep_figure(sweep_ds), out / "sweep.png")
 
     step(6, "summary")

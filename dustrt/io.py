@@ -74,16 +74,28 @@ def read_netcdf(path: str | Path) -> xr.Dataset:
         raise ValueError(f"{path}: cannot be read as netCDF ({exc})") from None
 
 
+def check_figure_format(path: str | Path) -> str:
+    """The figure format named by the file's suffix; ValueError naming the file if matplotlib lacks it."""
+    from matplotlib.backend_bases import FigureCanvasBase
+
+    path = Path(path)
+    fmt = path.suffix.lstrip(".").lower()
+    supported = FigureCanvasBase.get_supported_filetypes()
+    if fmt not in supported:
+        raise ValueError(f"plot {path}: unsupported format {fmt!r}; use one of {', '.join(sorted(supported))}")
+    return fmt
+
+
 def render_figure(fig, path: str | Path) -> str:
     """Render a figure to a temporary file beside ``path``; :func:`commit` or discard it later."""
     import matplotlib.pyplot as plt
 
     path = check_output_path(path, "plot")
-    fmt = path.suffix.lstrip(".").lower()
-    if fmt not in fig.canvas.get_supported_filetypes():
+    try:
+        fmt = check_figure_format(path)
+    except ValueError:
         plt.close(fig)
-        raise ValueError(f"plot {path}: unsupported format {fmt!r}; use one of "
-                         + ", ".join(sorted(fig.canvas.get_supported_filetypes())))
+        raise
     tmp = _temporary_beside(path, "." + fmt)
     try:
         fig.savefig(tmp, dpi=120, bbox_inches="tight", format=fmt)

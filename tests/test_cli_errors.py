@@ -211,3 +211,12 @@ def test_traceback_on_request(tmp_path, monkeypatch):
     monkeypatch.setenv("DUSTRT_TRACEBACK", "1")
     with pytest.raises(ValueError, match="wavelengths"):
         main(["optics", str(p), "-o", str(tmp_path / "o.nc")])
+
+
+def test_unsupported_plot_format_is_refused_before_work(tmp_path, capsys):
+    p = tmp_path / "s.toml"
+    p.write_text(textwrap.dedent(SCEN))
+    assert main(["optics", str(p), "-o", str(tmp_path / "o.nc"), "--plot", str(tmp_path / "o.xyz")]) == 2
+    err = capsys.readouterr().err
+    assert "unsupported format 'xyz'" in err and "first run" not in err
+    assert not (tmp_path / "o.nc").exists()

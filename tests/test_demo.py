@@ -85,3 +85,14 @@ def test_output_documentation_is_current(demo_dir):
     """docs/outputs.md lists every variable with units; regenerate with `python -m dustrt.demo docs/outputs.md`."""
     current = (REPO / "docs" / "outputs.md").read_text()
     assert current == describe_outputs(demo_dir)
+
+
+def test_overwrite_replaces_an_interrupted_demo_sweep(tmp_path, capsys):
+    out = tmp_path / "d"
+    chunks = out / "sweep.nc.chunks"
+    chunks.mkdir(parents=True)
+    (chunks / "chunk_000000.npz").write_bytes(b"left by an interrupted run")
+    assert main(["demo", "-o", str(out), "-q"]) == 2  # refused before any work
+    assert "sweep.nc.chunks" in capsys.readouterr().err and not (out / "optics.nc").exists()
+    assert main(["demo", "-o", str(out), "-q", "--overwrite"]) == 0
+    assert (out / "summary.txt").exists() and not chunks.exists()
