@@ -237,7 +237,12 @@ def unique_rays(observer_km, look_direction):
 
 
 def build_templates(scenario, spectra: ObservedSpectra, bin_width_nm=None, fwhm_nm=None, progress=False):
-    """Zodiacal and dust templates on the data's bins (model integrated with the LSF)."""
+    """Zodiacal and dust templates on the data's bins (model integrated with the LSF).
+
+    Templates are computed without extinction, so the model is exactly linear in density
+    (amplitude x hypothesis).  For optically thin dust the neglected terms (the dust's own
+    attenuation and the zodiacal light's exp(-tau)) are of order tau of the signal.
+    """
     from dustrt.observe import binned_limb
 
     width, fwhm = _lsf(scenario, spectra, bin_width_nm, fwhm_nm)
