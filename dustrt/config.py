@@ -568,11 +568,6 @@ def _check_joint_fit(s: Scenario, top: _Table) -> None:
         raise top.error("separation.joint_fit", f"a joint fit takes at most {MAX_JOINT_POPULATIONS} populations "
                                                 f"(its non-negative solver enumerates their subsets); got "
                                                 f"{len(s.populations)}")
-    if len(s.populations) > 1 and s.sweep is not None and any(k == "radius_um" for k, _ in s.sweep.axes):
-        raise top.error("sweep.radius_um", "gives every population the same radius, which makes the populations' "
-                                           "templates (nearly) proportional and a joint fit degenerate; with "
-                                           "separation.joint_fit sweep 'population.NAME.size.radius_um' (or "
-                                           "median_radius_um) instead")
 
 
 def _check_radius_sweep(s: Scenario, top: _Table) -> None:

@@ -92,12 +92,38 @@ def density_limits(fits, normalisation_cm3, confidence, method):
     return {k: np.array(v) for k, v in out.items()}
 
 
-def _with_radius(scenario, radius_um):
-    """Scenario copy with every population's characteristic radius replaced."""
-    import dataclasses
+def is_size_key(key: str) -> bool:
+    """Swept keys that change grain sizes: radius_um, or a population's size parameter."""
+    return key == "radius_um" or (key.startswith("population.") and ".size." in key)
 
-    pops = tuple(dataclasses.replace(p, size=p.size.with_radius(radius_um)) for p in scenario.populations)
-    return dataclasses.replace(scenario, populations=pops)
+
+def size_variants(scenario, command: str) -> list:
+    """The scenario at every point of its [sweep] grid of size keys (itself when there is none).
+
+    Other swept keys are ignored with a warning.  A common radius_um with a joint fit of several
+    populations is refused: it makes their templates (nearly) proportional.
+    """
+    from dustrt.sweep import grid_values, scenario_at
+
+    if scenario.sweep is None:
+        return [scenario]
+    axes = [(k, v) for k, v in scenario.sweep.axes if is_size_key(k)]
+    other = [k for k, _ in scenario.sweep.axes if not is_size_key(k)]
+    if other:
+        from dustrt import warn
+
+        warn(f"{scenario.source}: {command} sweeps only grain sizes (radius_um, population.NAME.size.*); swept "
+             f"keys {', '.join(other)} are ignored (their scenario values are used)")
+    if not axes:
+        return [scenario]
+    if scenario.separation.joint_fit and len(scenario.populations) > 1 and any(k == "radius_um" for k, _ in axes):
+        raise ValueError(f"{scenario.source}: key 'sweep.radius_um': gives every population the same radius, which "
+                         "makes a joint fit degenerate; sweep 'population.NAME.size.radius_um' (or "
+                         "median_radius_um) instead")
+    spec = {"raw": scenario.raw, "source": scenario.source, "base_dir": str(scenario.base_dir),
+            "text": scenario.text, "axes": axes}
+    n = int(np.prod([len(v) for _, v in axes]))
+    return [scenario_at(spec, grid_values(axes, i)) for i in range(n)]
 
 
 def limits_file(observation_path, scenario, method=None, progress=False):
@@ -115,18 +141,7 @@ def limits_file(observation_path, scenario, method=None, progress=False):
     check_hypotheses(scenario, "dustrt limit")
     spectra = read_observation(observation_path, scenario)
     check_bands(scenario, spectra.wavelength_nm, spectra.source)
-    radii = None
-    if scenario.sweep is not None:
-        for key, values in scenario.sweep.axes:
-            if key == "radius_um":
-                radii = values
-    other = [k for k, _ in scenario.sweep.axes if k != "radius_um"] if scenario.sweep is not None else []
-    if other:
-        from dustrt import warn
-
-        warn(f"{scenario.source}: dustrt limit sweeps only radius_um; swept keys {', '.join(other)} are ignored "
-             "(their scenario values are used)")
-    variants = [scenario] if radii is None else [_with_radius(scenario, r) for r in radii]
+    variants = size_variants(scenario, "dustrt limit")
     results = []
     it = variants
     if progress and len(variants) > 1:
@@ -147,6 +162,7 @@ def limits_file(observation_path, scenario, method=None, progress=False):
                    stack["reliable"].ravel(), stack["median_chi2"].ravel(), "the limits",
                    joint=scenario.separation.joint_fit)
     detect_sigma = scenario.sweep.detection_sigma if scenario.sweep is not None else 5.0
+    n0_all = [reference_density_cm3(p.density) for p in scenario.populations]
     # (P, S): the swept radius, or each population's own characteristic radius
     radius = np.array([[sc.populations[i].size.characteristic_radius_um for sc in variants]
                        for i in range(len(scenario.populations))])
@@ -180,6 +196,9 @@ def limits_file(observation_path, scenario, method=None, progress=False):
             "population": ("population", names, {"long_name": "hypothesised grain population"}),
             "grain_radius": ("grain_radius", np.arange(len(variants)),
                              {"long_name": "grain-radius index (the scenario's own radii, or its [sweep] radius_um)"}),
+            "hypothesis_density_cm3": ("population", np.array(n0_all),
+                                       {"units": "cm-3", "long_name": "the hypothesis's density normalisation "
+                                        "(what the limits are compared with)"}),
             "radius_um": (("population", "grain_radius"), radius,
                           {"units": "um", "long_name": "grain radius: monodisperse radius, lognormal median, or a "
                                                        "power law's lower bound"}),

@@ -84,6 +84,9 @@ def limits_figure(ds):
                     label=f"{p}: upper limit ({ds.attrs['confidence']:g} CL)")
         ax.plot(r, sel["detection_threshold_density_cm3"], ls="--", marker=".", color=color,
                 label=f"{p}: {ds.attrs['detection_sigma']:g}σ detection threshold")
+        if "hypothesis_density_cm3" in sel:
+            ax.axhline(float(sel["hypothesis_density_cm3"]), ls=":", color=color, lw=1,
+                       label=f"{p}: hypothesised density")
         if "fit_reliable" in sel and not np.all(sel["fit_reliable"].values):
             bad = ~sel["fit_reliable"].values.astype(bool)
             ax.plot(r[bad], up[bad], ls="none", marker="x", ms=9, color="red",
@@ -105,25 +108,40 @@ def limits_figure(ds):
 
 
 def separation_figure(ds, population=0, observation=0):
-    """Data, fitted zodiacal and dust components, and residuals for a few lines of sight."""
+    """Data, fitted zodiacal and dust components, and residuals for a few lines of sight.
+
+    A joint fit shows every population's dust and the residual against their sum; otherwise
+    the one hypothesis ``population``.
+    """
     plt = _plt()
     fig, (ax1, ax2) = plt.subplots(2, 1, figsize=(10, 6), sharex=True, gridspec_kw={"height_ratios": [3, 1]})
     wl = ds["wavelength_nm"].values
-    sel = ds.isel(population=population, observation=observation)
+    joint = bool(ds.attrs.get("joint_fit", 0))
+    pops = list(range(ds.sizes["population"])) if joint else [population]
+    data = ds.isel(observation=observation)
     for k in _pick(ds["line_of_sight"].values, 3):
-        s = sel.isel(line_of_sight=k)
+        s = data.isel(line_of_sight=k)
         view = (f"tangent altitude {float(s['tangent_altitude_km']):.1f} km" if "tangent_altitude_km" in s.coords
                 else f"line of sight {k}")
-        (line,) = ax1.semilogy(wl, s["observed_radiance"], lw=0.8, label=f"data, {view}")
-        ax1.semilogy(wl, s["zodiacal_fit_radiance"], ls=":", color=line.get_color(), label="zodiacal fit")
-        ax1.semilogy(wl, s["dust_excess_radiance"], ls="--", color=line.get_color(), label="dust fit")
-        model = s["zodiacal_fit_radiance"] + s["dust_excess_radiance"]
-        ax2.plot(wl, (s["observed_radiance"] - model) / s["observed_uncertainty"], lw=0.8, color=line.get_color())
+        (line,) = ax1.semilogy(wl, s["observed_radiance"], lw=2.5, alpha=0.35, label=f"data, {view}")
+        color = line.get_color()
+        zod = s["zodiacal_fit_radiance"].isel(population=pops[0])  # one zodiacal fit (shared when joint)
+        ax1.semilogy(wl, zod, ls=":", lw=1.2, color=color, label="zodiacal fit")
+        model = zod.copy()
+        for q, style in zip(pops, ("--", "-.", (0, (1, 1)), (0, (5, 1, 1, 1)))):
+            dust = s["dust_excess_radiance"].isel(population=q)
+            name = ds["population"].values[q]
+            ax1.semilogy(wl, dust, ls=style, color=color,
+                         label=f"dust fit {name}" + ("" if np.any(dust.values > 0) else " (zero: not drawn)"))
+            model = model + dust
+        ax2.plot(wl, (s["observed_radiance"] - model) / s["observed_uncertainty"], lw=0.8, color=color)
     ax1.set_ylabel("spectral radiance [W m⁻² sr⁻¹ nm⁻¹]")
     ax1.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0))  # beside: never on the spectra
     ax2.set_xlabel("wavelength [nm]")
     ax2.set_ylabel("residual [σ]")
-    fig.suptitle(f"dust/zodiacal separation: population {ds['population'].values[population]}")
+    what = ("joint fit of " + ", ".join(str(v) for v in ds["population"].values) if joint
+            else f"population {ds['population'].values[population]}")
+    fig.suptitle(f"dust/zodiacal separation: {what} (observation {observation})")
     return fig
 
 

@@ -42,7 +42,7 @@ def dimension_name(key: str) -> str:
     return key.replace(".", "__")
 
 
-def _scenario_at(spec, values: dict):
+def scenario_at(spec, values: dict):
     from dustrt.config import scenario_from_dict, with_values
 
     plain = {k: v for k, v in values.items() if k != "radius_um"}
@@ -116,7 +116,7 @@ def compute_chunk(spec, indices):
     """Picklable chunk function for :func:`dustrt.chunks.run_chunked`."""
     rows = {k: [] for k in OUTPUT_KEYS}
     for i in np.asarray(indices):
-        sc = _scenario_at(spec, grid_values(spec["axes"], int(i)))
+        sc = scenario_at(spec, grid_values(spec["axes"], int(i)))
         res = detectability(sc, spec["detection_sigma"])
         for k in OUTPUT_KEYS:
             rows[k].append(res[k])
@@ -156,6 +156,11 @@ def run_sweep(scenario, output_path, scheduler=None, workers=None, resume=False,
     from dustrt.chunks import completed_chunks, remove_checkpoints, run_chunked
 
     spec = sweep_spec(scenario)
+    if scenario.separation.joint_fit and len(scenario.populations) > 1 and any(
+            k == "radius_um" for k, _ in spec["axes"]):
+        raise ValueError(f"{scenario.source}: key 'sweep.radius_um': gives every population the same radius, which "
+                         "makes a joint fit degenerate; sweep 'population.NAME.size.radius_um' (or "
+                         "median_radius_um) instead")
     # validate every grid point's scenario up front (parsing only, ~1 ms each), so a bad
     # swept value or combination fails fast, naming the keys, before any work is done
     from dustrt.separate import check_bands, check_hypotheses
@@ -166,7 +171,7 @@ def run_sweep(scenario, output_path, scheduler=None, workers=None, resume=False,
     for i in range(n_points):
         values = grid_values(spec["axes"], i)
         try:
-            sc = _scenario_at(spec, values)
+            sc = scenario_at(spec, values)
             check_hypotheses(sc, "dustrt sweep")
             check_bands(sc, sc.instrument.instrument.bin_centres_nm, "the instrument")
         except ValueError as exc:

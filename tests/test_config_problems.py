@@ -205,15 +205,30 @@ def test_sweep_key_rules(tmp_path):
         load_scenario(path)
 
 
-def test_joint_fit_rules(tmp_path):
+def test_joint_fit_rules(tmp_path, capsys):
     second = ('\n[[population]]\nname = "other"\nmaterial = "mare_basaltic_analogue"\n'
               'size = { distribution = "monodisperse", radius_um = 0.3 }\n'
               'density = { profile = "exponential", surface_density_cm3 = 1e-6, scale_height_km = 5.0 }\n')
     text = _plan_text().replace("free_colour_slope = true ", "free_colour_slope = true\njoint_fit = true ")
     path = tmp_path / "j.toml"
     path.write_text(text.replace("[background]", second + "\n[background]"))
-    with pytest.raises(ScenarioError, match=r"key 'sweep.radius_um'.*joint fit degenerate"):
-        load_scenario(path)
+    sc = load_scenario(path)  # valid: `separate` does not sweep; `limit` and `sweep` refuse a common radius
+    from dustrt.limits import size_variants
+
+    from dustrt import DustrtWarning
+
+    with pytest.warns(DustrtWarning, match="integration_time_s are ignored"), \
+            pytest.raises(ValueError, match=r"key 'sweep.radius_um'.*joint fit degenerate"):
+        size_variants(sc, "dustrt limit")
+    assert main(["sweep", str(path), "-o", str(tmp_path / "s.nc")]) == 2
+    # a population's own size key is swept instead (and `limit` follows it)
+    per_pop = text.replace('radius_um = { start = 0.01, stop = 1.0, num = 12, spacing = "log" }',
+                           '"population.other.size.radius_um" = [0.2, 0.3]').replace(
+        '"instrument.integration_time_s" = [1.0, 10.0, 100.0]', "")
+    path.write_text(per_pop.replace("[background]", second + "\n[background]"))
+    variants = size_variants(load_scenario(path), "dustrt limit")
+    assert [v.population("other").size.radius_um for v in variants] == [0.2, 0.3]
+    assert all(v.population("lofted").size.radius_um == 0.1 for v in variants)
     many = "".join(second.replace('"other"', f'"p{i}"') for i in range(8))
     path.write_text(text.replace("[background]", many + "\n[background]").replace(
         'radius_um = { start = 0.01, stop = 1.0, num = 12, spacing = "log" }', ""))
