@@ -100,14 +100,17 @@ def _cmd_separate(args) -> int:
 def _cmd_limit(args) -> int:
     from dustrt.limits import limits_file
 
-    ds = limits_file(args.observation, _load(args, args.scenario), method=args.method, progress=not args.quiet)
+    sc = _load(args, args.scenario)
+    ds = limits_file(args.observation, sc, method=args.method, progress=not args.quiet)
+    size_word = {"monodisperse": "radius", "lognormal": "median radius", "power-law": "smallest radius (power law)"}
     for p in ds["population"].values:
+        word = size_word[sc.population(str(p)).size.kind]
         for k in range(ds.sizes["grain_radius"]):
             sel = ds.sel(population=p).isel(grain_radius=k)
             lo, up = float(sel["density_lower_limit_cm3"]), float(sel["density_upper_limit_cm3"])
             what = (f"interval [{lo:.3g}, {up:.3g}]" if int(sel["two_sided"]) else f"upper limit {up:.3g}")
             flag = "" if int(sel["fit_reliable"]) else "  (model does not fit the data: unreliable)"
-            _say(args, f"{p}, radius {float(sel['radius_um']):.3g} um: {what} cm-3 at "
+            _say(args, f"{p}, {word} {float(sel['radius_um']):.3g} um: {what} cm-3 at "
                        f"{ds.attrs['confidence']:g} CL, excess {float(sel['dust_excess_significance']):.2f} sigma{flag}")
     return _finish(args, ds, "limits_figure")
 

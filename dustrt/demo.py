@@ -110,19 +110,21 @@ def run_demo(out_dir, *, overwrite: bool = False, progress: bool = True, say=pri
           "quiet_sky_observation.nc")
     limits = limits_file(out / "quiet_sky_observation.nc", sc, progress=progress)
     write(limits, "limits.nc", "limits_figure")
+    # the headline: the limit for the hypothesis itself (its own grain sizes, no radius sweep)
+    own_limits = limits_file(out / "quiet_sky_observation.nc", dataclasses.replace(sc, sweep=None))
 
     step(5, "detectability versus grain radius")
     sweep_ds = run_sweep(sc, out / "sweep.nc", progress=progress, overwrite=overwrite)
     io.save_figure(plots.sweep_figure(sweep_ds), out / "sweep.png")
 
     step(6, "summary")
-    headlines = headline_numbers(sc, limb, separation, limits, sweep_ds)
+    headlines = headline_numbers(sc, limb, separation, limits, sweep_ds, own_limits)
     text = summary_text(sc, out, headlines, time.perf_counter() - t0)
     io.write_text(text, out / "summary.txt")
     return headlines
 
 
-def headline_numbers(scenario, limb, separation, limits, sweep_ds) -> dict:
+def headline_numbers(scenario, limb, separation, limits, sweep_ds, own_limits) -> dict:
     """The numbers a reader looks for first (see :func:`summary_text`)."""
     from dustrt.density import reference_density_cm3
 
@@ -150,8 +152,9 @@ def headline_numbers(scenario, limb, separation, limits, sweep_ds) -> dict:
         rows = [(float(r), float(u), bool(ok)) for r, u, ok in zip(
             sel["radius_um"].values, sel["density_upper_limit_cm3"].values, sel["fit_reliable"].values)]
         h["upper_limit_cm3"][str(p)] = rows
-        own = h["hypothesis"][str(p)][0]  # the swept radius closest (in log) to the hypothesis's own
-        h["headline_limit"][str(p)] = min(rows, key=lambda row: abs(np.log(row[0] / own)))
+        own = own_limits.sel(population=p).isel(grain_radius=0)
+        h["headline_limit"][str(p)] = (float(own["radius_um"]), float(own["density_upper_limit_cm3"]),
+                                       bool(own["fit_reliable"]))
     h["best_radius_um"] = {}
     for p in sweep_ds["population"].values:
         vol = sweep_ds["minimum_detectable_volume_density_um3_cm3"].sel(population=p)
@@ -195,8 +198,8 @@ def summary_text(scenario, out: Path, h: dict, seconds: float) -> str:
                      f"median reduced chi-square {chi2:.2f}")
     lines += ["", f"Upper limit from the simulated non-detection ({h['confidence']:.0%} CL, all lines of sight)"]
     for p, (r, u, ok) in h["headline_limit"].items():
-        lines.append(f"  {p:<14} {u:.3g} cm-3 at radius {r:.3g} um (hypothesis {h['hypothesis'][p][1]:.3g} cm-3)"
-                     + ("" if ok else "   (model does not fit: unreliable)"))
+        lines.append(f"  {p:<14} {u:.3g} cm-3 for the hypothesis itself (radius {r:.3g} um; hypothesised "
+                     f"{h['hypothesis'][p][1]:.3g} cm-3)" + ("" if ok else "   (model does not fit: unreliable)"))
     lines += ["  versus grain radius:", "  population     grain radius [um]   density upper limit [cm-3]"]
     for p, rows in h["upper_limit_cm3"].items():
         for r, u, ok in rows:
