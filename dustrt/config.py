@@ -242,7 +242,8 @@ _KNOWN_KEYS = {
     "extinction", "zodiacal_light", "zodiacal_scale", "dark_surface_radiance_factor", "aperture_area_cm2",
     "field_of_view_deg", "solid_angle_sr", "integration_time_s", "frames", "bin_width_nm", "resolution_fwhm_nm",
     "wavelength_min_nm", "wavelength_max_nm", "throughput", "read_noise_e", "dark_current_e_s",
-    "stray_light_fraction", "stray_light_reference_radiance_w_m2_sr_nm", "field_of_view_rings", "blue_band_nm",
+    "stray_light_fraction", "stray_light_reference_radiance_w_m2_sr_nm", "field_of_view_rings",
+    "calibration_error_fraction", "blue_band_nm",
     "red_band_nm", "fit_bands_nm", "mask_nm", "free_colour_slope", "joint_fit", "confidence", "method", "detection_sigma",
     "chunk_size", "start", "stop", "num", "step", "spacing",
 }
@@ -849,11 +850,12 @@ def _instrument(t: _Table):
     kw["stray_light_fraction"] = t.number("stray_light_fraction", 0.0, low=0.0, high=1.0)
     kw["stray_light_reference_radiance"] = t.number("stray_light_reference_radiance_w_m2_sr_nm", 0.0,
                                                      low=0.0, high=1e3)
+    kw["calibration_error_fraction"] = t.number("calibration_error_fraction", 0.0, low=0.0, high=0.5)
     fov_nodes = t.number("field_of_view_rings", 0, low=0, high=64, integer=True)
     t.finish("aperture_area_cm2, field_of_view_deg | solid_angle_sr, integration_time_s, frames, "
              "bin_width_nm, resolution_fwhm_nm, wavelength_min_nm, wavelength_max_nm, throughput, "
              "read_noise_e, dark_current_e_s, stray_light_fraction, stray_light_reference_radiance_w_m2_sr_nm, "
-             "field_of_view_rings")
+             "calibration_error_fraction, field_of_view_rings")
     try:
         instrument = inst_mod.Instrument(**kw)
     except ValueError as exc:

@@ -190,6 +190,11 @@ class Instrument:
     stray_light_reference_radiance : float
         Reference radiance for stray light [W m⁻² sr⁻¹ nm⁻¹], >= 0 (e.g. the
         sunlit surface just below the limb).  Default 0.
+    calibration_error_fraction : float
+        Relative 1σ error of the radiometric calibration per bin (flat field,
+        spectral response), in [0, 0.5].  Treated as noise uncorrelated between
+        bins and realisations, σ_cal = f·(S + B) electrons, added in quadrature
+        (common practice for a calibration floor).  Default 0.
 
     Attributes
     ----------
@@ -216,6 +221,7 @@ class Instrument:
     dark_current_e_s: float = 0.0
     stray_light_fraction: float = 0.0
     stray_light_reference_radiance: float = 0.0
+    calibration_error_fraction: float = 0.0
 
     def __post_init__(self):
         def put(name, value):
@@ -270,6 +276,10 @@ class Instrument:
             _non_negative(self.stray_light_reference_radiance, "stray_light_reference_radiance", "W m⁻² sr⁻¹ nm⁻¹"),
         )
         put("throughput", self._normalised_throughput(self.throughput))
+        cal = _finite_scalar(self.calibration_error_fraction, "calibration_error_fraction")
+        if not 0.0 <= cal <= 0.5:
+            raise ValueError(f"calibration_error_fraction must lie in [0, 0.5], got {self.calibration_error_fraction!r}")
+        put("calibration_error_fraction", cal)
 
     # Normalise to a float or a pair of float tuples, so the frozen instance
     # stays hashable, comparable and safe under dataclasses.replace.
@@ -595,8 +605,10 @@ class CountsResult:
         Expected dark-current electrons over the total exposure [e⁻].
     read_noise_e : ndarray
         Read noise over all co-added frames, √frames · σ_read [e⁻ rms].
+    calibration_e : ndarray
+        Calibration error f·(S + B) [e⁻ rms] (0 unless the instrument has one).
     noise_e : ndarray
-        Total noise √(S + B + D + frames·σ_read²) [e⁻ rms].
+        Total noise √(S + B + D + frames·σ_read² + calibration_e²) [e⁻ rms].
     snr : ndarray
         signal_e / noise_e (0 where both are 0).
     radiance_uncertainty : ndarray
@@ -614,11 +626,13 @@ class CountsResult:
     snr: np.ndarray
     radiance_uncertainty: np.ndarray
     radiance_per_electron: np.ndarray
+    calibration_e: np.ndarray | float = 0.0
 
     def simulate(self, rng: np.random.Generator, n_realisations: int | None = None) -> np.ndarray:
         """:func:`simulate_noisy` with this result's expectations [e⁻]."""
         return simulate_noisy(
-            self.signal_e, self.background_e, self.dark_e, self.read_noise_e, rng, n_realisations=n_realisations
+            self.signal_e, self.background_e, self.dark_e, self.read_noise_e, rng, n_realisations=n_realisations,
+            calibration_e=self.calibration_e,
         )
 
 
@@ -730,7 +744,8 @@ def expected_counts(
     background_e = np.broadcast_to(background * k, shape).copy()
     dark = np.full(shape, instrument.dark_current_e_s * instrument.exposure_s)
     read = np.full(shape, math.sqrt(instrument.frames) * instrument.read_noise_e)
-    noise = np.sqrt(signal + background_e + dark + read**2)
+    calibration = instrument.calibration_error_fraction * (signal + background_e)
+    noise = np.sqrt(signal + background_e + dark + read**2 + calibration**2)
     snr = np.divide(signal, noise, out=np.zeros(shape), where=noise > 0.0)
     per_e = np.broadcast_to(radiance_per_electron(centres, instrument), shape).copy()
     uncertainty = np.where(np.isfinite(per_e), noise * np.where(np.isfinite(per_e), per_e, 0.0), np.inf)
@@ -743,6 +758,7 @@ def expected_counts(
         snr=snr,
         radiance_uncertainty=uncertainty,
         radiance_per_electron=per_e,
+        calibration_e=calibration,
     )
 
 
@@ -754,12 +770,14 @@ def simulate_noisy(
     rng: np.random.Generator,
     *,
     n_realisations: int | None = None,
+    calibration_e=0.0,
 ) -> np.ndarray:
     """One calibrated noisy realisation of the detected signal [e⁻].
 
-    Draws Poisson(signal + background + dark) + Normal(0, read noise) and
-    subtracts the expected background and dark, as a calibration would; the
-    result scatters around the expected signal with variance noise_e².
+    Draws Poisson(signal + background + dark) + Normal(0, read noise) +
+    Normal(0, calibration error) and subtracts the expected background and
+    dark, as a calibration would; the result scatters around the expected
+    signal with variance noise_e².
 
     Parameters
     ----------
@@ -771,6 +789,8 @@ def simulate_noisy(
         Source of randomness (pass a seeded one for reproducibility).
     n_realisations : int, optional, keyword
         If given, a leading axis of this many independent realisations.
+    calibration_e : array_like, optional, keyword
+        Calibration error [e⁻ rms], >= 0, broadcastable (default 0).
 
     Returns
     -------
@@ -796,8 +816,13 @@ def simulate_noisy(
         if isinstance(n_realisations, bool) or not isinstance(n_realisations, (int, np.integer)) or n_realisations < 1:
             raise ValueError(f"n_realisations must be an integer >= 1, got {n_realisations!r}")
         shape = (int(n_realisations),) + shape
+    cal = np.broadcast_to(np.asarray(calibration_e, dtype=float), signal.shape)
+    if not np.all(np.isfinite(cal)) or np.any(cal < 0.0):
+        raise ValueError("calibration_e must be finite and >= 0 [e⁻]")
     collected = rng.poisson(np.broadcast_to(signal + background + dark, shape)).astype(float)
     readout = rng.normal(0.0, 1.0, size=shape) * read
+    if np.any(cal > 0):
+        readout = readout + rng.normal(0.0, 1.0, size=shape) * cal
     return collected + readout - background - dark
 
 

@@ -505,3 +505,26 @@ def test_fov_bad_inputs_rejected():
         rotate_offsets_to([0.0, 0.0, 0.0], np.array([[0.0, 0.0, 1.0]]))
     with pytest.raises(ValueError, match="offsets"):
         rotate_offsets_to([0.0, 0.0, 1.0], np.ones((2, 2)))
+
+
+def test_calibration_error_floor():
+    # noise² = S + B + D + R² + (f(S+B))²: at high signal the SNR saturates at 1/f (exact
+    # algebra of the quadrature sum); realisations scatter with the full noise (χ² window as in
+    # test_noise_realisations_match_expected_mean_and_spread); f = 0 changes nothing.
+    f = 0.01
+    inst, plain = make_instrument(calibration_error_fraction=f), make_instrument()
+    centres = inst.bin_centres_nm[:3]
+    bright = expected_counts(np.full(3, 1e-2), centres, inst)
+    assert np.all(bright.snr < 1 / f) and np.all(bright.snr > 0.99 / f)
+    base = expected_counts(np.full(3, 1e-6), centres, plain)
+    same = expected_counts(np.full(3, 1e-6), centres, make_instrument(calibration_error_fraction=0.0))
+    np.testing.assert_array_equal(base.noise_e, same.noise_e)
+    faint = expected_counts(np.full(3, 1e-6), centres, inst)
+    np.testing.assert_allclose(faint.noise_e**2, base.noise_e**2 + (f * faint.signal_e) ** 2, rtol=1e-12)
+    n = 20_000
+    draws = faint.simulate(np.random.default_rng(3), n)
+    lo, hi = chi2.ppf([0.0005, 0.9995], n - 1) / (n - 1)
+    ratio = draws.var(axis=0, ddof=1) / faint.noise_e**2
+    assert np.all((lo < ratio) & (ratio < hi)), ratio
+    with pytest.raises(ValueError, match="calibration_error_fraction"):
+        make_instrument(calibration_error_fraction=0.6)
