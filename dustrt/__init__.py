@@ -15,3 +15,23 @@ def warn(message: str) -> None:
     import warnings
 
     warnings.warn(message, DustrtWarning, stacklevel=3)
+
+
+def use_plain_warnings(command: str):
+    """Show dustrt's own warnings as one plain line ("dustrt COMMAND: warning: ..."), without
+    Python's source excerpt; returns the previous formatter.  Idempotent (dask workers call it
+    for every chunk)."""
+    import warnings
+
+    default = warnings.formatwarning
+    if getattr(default, "dustrt_plain", False):
+        return default
+
+    def fmt(message, category, filename, lineno, line=None):
+        if issubclass(category, DustrtWarning):
+            return f"dustrt {command}: warning: {message}\n"
+        return default(message, category, filename, lineno, line)
+
+    fmt.dustrt_plain = True
+    warnings.formatwarning = fmt
+    return default

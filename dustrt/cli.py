@@ -262,23 +262,6 @@ def _check_outputs(args) -> None:
             raise ValueError(f"{what} {name}: already exists; choose another name or pass --overwrite")
 
 
-def _plain_warnings(command: str):
-    """Show dustrt's own warnings as one plain line (no source excerpt); returns the previous formatter."""
-    import warnings
-
-    from dustrt import DustrtWarning
-
-    default = warnings.formatwarning
-
-    def fmt(message, category, filename, lineno, line=None):
-        if issubclass(category, DustrtWarning):
-            return f"dustrt {command}: warning: {message}\n"
-        return default(message, category, filename, lineno, line)
-
-    warnings.formatwarning = fmt
-    return default
-
-
 def main(argv=None) -> int:
     from dustrt.chunks import ChunkError  # light: imports no dask
 
@@ -288,7 +271,9 @@ def main(argv=None) -> int:
         parser._dustrt_commands[args.command].error(f"unrecognized arguments: {' '.join(unknown)}")
     import warnings
 
-    previous_format = _plain_warnings(args.command)
+    from dustrt import use_plain_warnings
+
+    previous_format = use_plain_warnings(args.command)
     try:
         _check_outputs(args)
         return args.func(args)

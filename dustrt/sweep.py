@@ -112,8 +112,24 @@ def grid_values(axes, flat_index: int) -> dict:
     return {key: float(values[i]) for (key, values), i in zip(axes, idx)}
 
 
+def _in_dask_worker() -> bool:
+    import sys
+
+    if "distributed" not in sys.modules:  # never imported: serial, in-process
+        return False
+    try:
+        sys.modules["distributed"].get_worker()
+    except ValueError:
+        return False
+    return True
+
+
 def compute_chunk(spec, indices):
     """Picklable chunk function for :func:`dustrt.chunks.run_chunked`."""
+    if _in_dask_worker():  # its warnings print in the worker: make them the CLI's plain lines too
+        from dustrt import use_plain_warnings
+
+        use_plain_warnings("sweep")
     rows = {k: [] for k in OUTPUT_KEYS}
     for i in np.asarray(indices):
         sc = scenario_at(spec, grid_values(spec["axes"], int(i)))
