@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import copy
 import math
+import re
 import tomllib
 from contextlib import contextmanager
 from dataclasses import dataclass, field
@@ -465,7 +466,7 @@ def scenario_from_dict(raw: dict, source: str = "<scenario>", base_dir: Path | N
             raise top.error("population", "at least one [[population]] table is required")
         for i, p in enumerate(pops_raw):
             with problems.guard():
-                populations.append(_population(top.child(p, f"population[{i}]")))
+                populations.append((i, _population(top.child(p, f"population[{i}]"))))
         names = [p.get("name") for p in pops_raw if isinstance(p.get("name"), str)]  # also of bad populations
         if len(set(names)) != len(names):
             raise top.error("population", f"population names must be unique, got {names}")
@@ -487,16 +488,43 @@ def scenario_from_dict(raw: dict, source: str = "<scenario>", base_dir: Path | N
 
     with problems.guard():
         top.finish(", ".join(TOP_LEVEL))
-    problems.raise_if_any()
 
-    # checks across tables, once every table is valid on its own
-    scenario = Scenario(source=source, text=text, raw=raw, base_dir=base_dir,
-                        populations=tuple(populations), **kwargs)
+    # checks across tables, on every table that is valid on its own (a bad table is skipped:
+    # its own problem is already reported and its defaults would mislead)
+    bad = {re.split(r"[.\[]", k, maxsplit=1)[0] for k in problems.keys}
+    parts = _Parts(raw=raw, bad=bad, populations=populations, **kwargs)
     for check in (_check_view_against_observer, _check_spectral_coverage, _check_radius_sweep, _check_joint_fit):
         with problems.guard():
-            check(scenario, top)
+            check(parts, top)
     problems.raise_if_any()
-    return scenario
+    return Scenario(source=source, text=text, raw=raw, base_dir=base_dir,
+                    populations=tuple(p for _, p in populations), **kwargs)
+
+
+@dataclass
+class _Parts:
+    """The valid tables of a scenario being checked (``bad``: names of tables with problems)."""
+
+    raw: dict
+    bad: set
+    populations: list  # [(index in the file, Population)] of the valid populations
+    wavelength_nm: np.ndarray | None = None
+    scattering_angle_deg: np.ndarray | None = None
+    optics_relative_tolerance: float | None = None
+    body_radius_km: float = MOON_RADIUS_KM
+    sun_distance_au: float = 1.0
+    solar_spectrum: str | Path = "builtin"
+    observer: Observer | None = None
+    view: View | None = None
+    integration: Integration | None = None
+    background: Background | None = None
+    instrument: Any = None
+    separation: Separation = Separation()
+    limits: Limits | None = None
+    sweep: Sweep | None = None
+
+    def valid(self, *tables: str) -> bool:
+        return not (set(tables) & self.bad)
 
 
 def _body(t: _Table) -> dict:
@@ -562,19 +590,19 @@ def _wavelengths(wl_t: _Table) -> np.ndarray:
     return wavelength
 
 
-def _check_joint_fit(s: Scenario, top: _Table) -> None:
-    if not s.separation.joint_fit:
+def _check_joint_fit(s: "_Parts", top: _Table) -> None:
+    if not s.valid("separation") or not s.separation.joint_fit:
         return
-    if len(s.populations) > MAX_JOINT_POPULATIONS:
+    n_pop = len(s.raw.get("population", [])) if isinstance(s.raw.get("population"), list) else 0
+    if n_pop > MAX_JOINT_POPULATIONS:
         raise top.error("separation.joint_fit", f"a joint fit takes at most {MAX_JOINT_POPULATIONS} populations "
-                                                f"(its non-negative solver enumerates their subsets); got "
-                                                f"{len(s.populations)}")
+                                                f"(its non-negative solver enumerates their subsets); got {n_pop}")
 
 
-def _check_radius_sweep(s: Scenario, top: _Table) -> None:
-    if s.sweep is None or not any(k == "radius_um" for k, _ in s.sweep.axes):
+def _check_radius_sweep(s: "_Parts", top: _Table) -> None:
+    if not s.valid("sweep") or s.sweep is None or not any(k == "radius_um" for k, _ in s.sweep.axes):
         return
-    for i, p in enumerate(s.populations):
+    for i, p in s.populations:
         if p.size.kind == "power-law":
             raise top.error("sweep.radius_um",
                             f"population[{i}] ({p.name!r}) has a power-law size distribution, which has no "
@@ -582,22 +610,24 @@ def _check_radius_sweep(s: Scenario, top: _Table) -> None:
                             "min_radius_um, slope) instead")
 
 
-def _check_spectral_coverage(s: Scenario, top: _Table) -> None:
+def _check_spectral_coverage(s: "_Parts", top: _Table) -> None:
     """Materials, the solar spectrum and the instrument bins against the model wavelengths
     (each problem recorded, so all are reported together)."""
+    if not s.valid("wavelengths"):
+        return
     wl = s.wavelength_nm
 
     def problem(key, message):
         top.problems.add(top.error(key, message))
 
-    for i, p in enumerate(s.populations):
+    for i, p in s.populations:
         lo, hi = p.material.wavelength_range_nm
         if wl[0] < lo or wl[-1] > hi:
             problem(f"population[{i}].material",
                     f"{p.material.name!r} ({p.material.source or 'table'}) covers {lo:g}-{hi:g} nm; "
                     f"the [wavelengths] grid {wl[0]:g}-{wl[-1]:g} nm reaches outside it")
-    needs_sun = s.observer is not None or s.instrument is not None
-    if needs_sun:
+    needs_sun = "observer" in s.raw or "instrument" in s.raw
+    if needs_sun and s.valid("sun"):
         from dustrt.sun import solar_table
 
         try:
@@ -608,7 +638,7 @@ def _check_spectral_coverage(s: Scenario, top: _Table) -> None:
         if tw is not None and (wl[0] < tw[0] or wl[-1] > tw[-1]):
             problem("sun.spectrum", f"the solar spectrum covers {tw[0]:g}-{tw[-1]:g} nm; the "
                                     f"[wavelengths] grid {wl[0]:g}-{wl[-1]:g} nm reaches outside it")
-    if s.instrument is not None:
+    if s.instrument is not None and s.valid("instrument"):
         inst = s.instrument.instrument
         if wl.size < 2:
             problem("wavelengths", "needs at least two wavelengths when an [instrument] is given")
@@ -796,7 +826,9 @@ def _view(t: _Table) -> View:
     return View(tangent_altitudes_km=h, azimuth_deg=az, directions=None)
 
 
-def _check_view_against_observer(s: Scenario, top: _Table) -> None:
+def _check_view_against_observer(s: "_Parts", top: _Table) -> None:
+    if not s.valid("observer", "view", "body"):
+        return
     if s.view is None or s.observer is None or s.view.tangent_altitudes_km is None:
         return
     h = s.view.tangent_altitudes_km

@@ -234,3 +234,21 @@ def test_joint_fit_rules(tmp_path, capsys):
         'radius_um = { start = 0.01, stop = 1.0, num = 12, spacing = "log" }', ""))
     with pytest.raises(ScenarioError, match=r"key 'separation.joint_fit': a joint fit takes at most 8"):
         load_scenario(path)
+
+
+def test_checks_across_tables_run_on_the_valid_tables(tmp_path):
+    # a bad [body] does not stop the instrument range being checked against [wavelengths]; a bad
+    # [instrument] skips that check (its defaults would mislead) but not the others
+    path = tmp_path / "x.toml"
+    text = _plan_text().replace("[observer]", "[body]\nradius_km = \"big\"\n\n[observer]")
+    path.write_text(text.replace("wavelength_max_nm = 790.0", "wavelength_max_nm = 900.0"))
+    with pytest.raises(ScenarioError) as info:
+        load_scenario(path)
+    keys = " ".join(info.value.problems)
+    assert "key 'body.radius_km'" in keys and "key 'instrument.wavelength_max_nm'" in keys
+    path.write_text(text.replace("start_nm = 250.0", "start_nm = 150.0").replace("frames = 6", "frames = -6"))
+    with pytest.raises(ScenarioError) as info:
+        load_scenario(path)
+    keys = " ".join(info.value.problems)
+    assert "key 'instrument.frames'" in keys and "key 'population[0].material'" in keys
+    assert "key 'sun.spectrum'" in keys and "instrument.wavelength_min_nm" not in keys
