@@ -245,7 +245,7 @@ _KNOWN_KEYS = {
     "wavelength_min_nm", "wavelength_max_nm", "throughput", "read_noise_e", "dark_current_e_s",
     "stray_light_fraction", "stray_light_reference_radiance_w_m2_sr_nm", "field_of_view_rings",
     "calibration_error_fraction", "blue_band_nm",
-    "red_band_nm", "fit_bands_nm", "mask_nm", "free_colour_slope", "joint_fit", "confidence", "method", "detection_sigma",
+    "red_band_nm", "fit_bands_nm", "mask_nm", "free_colour_slope", "joint_fit", "zodiacal_colour_order", "confidence", "method", "detection_sigma",
     "chunk_size", "start", "stop", "num", "step", "spacing",
 }
 
@@ -338,6 +338,12 @@ class Separation:
     mask_nm: tuple = ()
     free_colour_slope: bool = False
     joint_fit: bool = False  # all populations in one fit (else one hypothesis at a time)
+    zodiacal_colour_order: int = 0  # polynomial order in ln(λ/500 nm) of the zodiacal colour terms
+
+    @property
+    def colour_order(self) -> int:
+        """Free zodiacal colour terms: the polynomial order, at least 1 with free_colour_slope."""
+        return max(self.zodiacal_colour_order, 1 if self.free_colour_slope else 0)
 
 
 @dataclass(frozen=True)
@@ -736,6 +742,9 @@ def _size(st: _Table):
         raise st.error(None, str(exc)) from None
 
 
+#: Highest polynomial order of the free zodiacal colour terms (more would absorb any dust colour).
+MAX_COLOUR_ORDER = 3
+
 #: Populations a joint fit may hold (dustrt.lsq enumerates subsets of the constrained amplitudes).
 MAX_JOINT_POPULATIONS = 8
 
@@ -938,8 +947,10 @@ def _separation(t: _Table) -> Separation:
         mask_nm=_band_list(t, "mask_nm"),
         free_colour_slope=t.boolean("free_colour_slope", False),
         joint_fit=t.boolean("joint_fit", False),
+        zodiacal_colour_order=t.number("zodiacal_colour_order", 0, low=0, high=MAX_COLOUR_ORDER, integer=True),
     )
-    t.finish("blue_band_nm, red_band_nm, fit_bands_nm, mask_nm, free_colour_slope, joint_fit")
+    t.finish("blue_band_nm, red_band_nm, fit_bands_nm, mask_nm, free_colour_slope, zodiacal_colour_order, "
+             "joint_fit")
     return s
 
 

@@ -317,19 +317,30 @@ class SeparationFit:
         return self.amplitudes_nonneg[..., self.dust_index]
 
 
-def design_matrix(zodiacal, dust, wavelength_nm, free_colour_slope: bool):
-    """Templates (..., K, B): zodiacal, optional colour-slope term, then the dust template (..., B)
+def design_matrix(zodiacal, dust, wavelength_nm, colour_order: int):
+    """Templates (..., K, B): zodiacal light Z, the colour terms Z·ln(λ/500 nm)^k for k = 1 ..
+    ``colour_order`` (0: fixed colour; 1: a free colour slope), then the dust template (..., B)
     or several dust templates (D, ..., B) for a joint fit."""
-    parts = [zodiacal]
-    if free_colour_slope:
-        parts.append(zodiacal * np.log(np.asarray(wavelength_nm) / REFERENCE_WAVELENGTH_NM))
+    log_wl = np.log(np.asarray(wavelength_nm) / REFERENCE_WAVELENGTH_NM)
+    parts = [zodiacal] + [zodiacal * log_wl**k for k in range(1, int(colour_order) + 1)]
     dust = np.asarray(dust)
     parts.extend(list(dust) if dust.ndim == np.ndim(zodiacal) + 1 else [dust])
     return np.stack(parts, axis=-2)
 
 
+def zodiacal_fit_radiance(amplitudes, zodiacal, wavelength_nm, colour_order: int):
+    """The fitted zodiacal component Σ_k a_k Z ln(λ/500 nm)^k from amplitudes (..., K) and Z (..., B)."""
+    log_wl = np.log(np.asarray(wavelength_nm) / REFERENCE_WAVELENGTH_NM)
+    return sum(amplitudes[..., k][..., None] * zodiacal * log_wl**k for k in range(int(colour_order) + 1))
+
+
+def zodiacal_parameter_names(colour_order: int) -> tuple:
+    names = ("zodiacal_amplitude", "zodiacal_colour_slope", "zodiacal_colour_term_2", "zodiacal_colour_term_3")
+    return names[:int(colour_order) + 1]
+
+
 def zodiacal_parameter_count(scenario) -> int:
-    return 2 if scenario.separation.free_colour_slope else 1
+    return 1 + scenario.separation.colour_order
 
 
 def fit_spectra(data, sigma, templates, use_mask, nonnegative: bool = True, nonneg_index=-1) -> tuple:
@@ -358,7 +369,7 @@ def fit_spectra(data, sigma, templates, use_mask, nonnegative: bool = True, nonn
     return a, cov, a_nn, res
 
 
-def joint_fit_spectra(data, sigma, zodiacal, dust, wavelength_nm, free_colour_slope: bool, use_mask,
+def joint_fit_spectra(data, sigma, zodiacal, dust, wavelength_nm, colour_order: int, use_mask,
                       nonnegative: bool = True):
     """Fit spectra (..., B) with the zodiacal terms and every population's dust template (P, ..., B).
 
@@ -368,7 +379,7 @@ def joint_fit_spectra(data, sigma, zodiacal, dust, wavelength_nm, free_colour_sl
     covariance (..., K, K), non-negative amplitudes or None, chi2, dof, n_used) with
     K = zodiacal terms + P.
     """
-    k0 = 2 if free_colour_slope else 1
+    k0 = 1 + int(colour_order)
     n_pop = dust.shape[0]
     k = k0 + n_pop
     shape = np.shape(data)[:-1]
@@ -392,7 +403,7 @@ def joint_fit_spectra(data, sigma, zodiacal, dust, wavelength_nm, free_colour_sl
         pops = [q for q in range(n_pop) if (c >> q) & 1]
         cols = np.array(list(range(k0)) + [k0 + q for q in pops])
         x = design_matrix(zod[rows], dst[pops][:, rows] if pops else np.zeros((0, rows.size, n_bins)),
-                          wavelength_nm, free_colour_slope)
+                          wavelength_nm, colour_order)
         constrained = list(range(k0, k0 + len(pops)))
         ra, rc, rn, res = fit_spectra(y[rows], sig[rows], x, use[rows], nonnegative=nonnegative and bool(pops),
                                       nonneg_index=constrained or -1)
@@ -442,7 +453,7 @@ def separate(scenario, spectra: ObservedSpectra, templates: Templates | None = N
     zod = templates.zodiacal[templates.ray_index]  # (O, L, B)
     fits = []
     sep = scenario.separation
-    zod_names = ("zodiacal_amplitude",) + (("zodiacal_colour_slope",) if sep.free_colour_slope else ())
+    zod_names = zodiacal_parameter_names(sep.colour_order)
     data = np.where(use, spectra.radiance, np.nan)
     sigma = np.where(use, spectra.uncertainty, 1.0)
     n_pop = templates.dust_per_unit.shape[0]
@@ -450,14 +461,14 @@ def separate(scenario, spectra: ObservedSpectra, templates: Templates | None = N
         # one fit with every population's template: each amplitude is profiled over the others
         dust = templates.dust_per_unit[:, templates.ray_index]  # (P, O, L, B)
         a, cov, a_nn, chi2, dof, n_used = joint_fit_spectra(data, sigma, zod, dust, spectra.wavelength_nm,
-                                                            sep.free_colour_slope, use)
+                                                            sep.colour_order, use)
         k0 = len(zod_names)
         names = zod_names + tuple(f"dust_amplitude_{p.name}" for p in scenario.populations)
         return [SeparationFit(amplitudes=a, covariance=cov, amplitudes_nonneg=a_nn, chi2=chi2, dof=dof,
                               n_used=n_used, parameter_names=names, dust_index=k0 + p) for p in range(n_pop)]
     for p in range(n_pop):
         dust = templates.dust_per_unit[p][templates.ray_index]
-        x = design_matrix(zod, dust, spectra.wavelength_nm, sep.free_colour_slope)
+        x = design_matrix(zod, dust, spectra.wavelength_nm, sep.colour_order)
         a, cov, a_nn, res = fit_spectra(data, sigma, x, use)
         fits.append(SeparationFit(amplitudes=a, covariance=cov, amplitudes_nonneg=a_nn, chi2=res.chi2,
                                   dof=res.dof, n_used=res.n_used, parameter_names=zod_names + ("dust_amplitude",)))
@@ -557,9 +568,7 @@ def separate_file(observation_path, scenario, progress=False):
     dust_s = np.stack([ft.dust_sigma for ft in fits])
     dust_unit = np.stack([templates.dust_per_unit[p][templates.ray_index] for p in range(len(fits))])
     dust_excess = np.stack([ft.dust_amplitude_nonneg for ft in fits])[..., None] * dust_unit  # (P, O, L, B)
-    zod_fit = a_nn[..., 0][..., None] * zod[None]
-    if sep.free_colour_slope:
-        zod_fit = zod_fit + a_nn[..., 1][..., None] * zod[None] * np.log(wl / REFERENCE_WAVELENGTH_NM)
+    zod_fit = zodiacal_fit_radiance(a_nn, zod[None], wl, sep.colour_order)
     sig = dust_a / dust_s
     blue, red = sep.blue_band_nm, sep.red_band_nm
     POL = ("population", "observation", "line_of_sight")
@@ -609,6 +618,7 @@ def separate_file(observation_path, scenario, progress=False):
                "observation_file": str(observation_path), "scenario": scenario.text,
                "blue_band_nm": list(blue), "red_band_nm": list(red),
                "masked_windows_nm": str(list(sep.mask_nm)), "free_colour_slope": int(sep.free_colour_slope),
+               "zodiacal_colour_order": sep.colour_order,
                "joint_fit": int(sep.joint_fit),
                "ignored_nan_bins": spectra.n_nan, "ignored_masked_bins": spectra.n_file_masked,
                "surface_views_left_out": int(np.sum(~limb_view))},

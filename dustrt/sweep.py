@@ -78,14 +78,14 @@ def detectability(scenario, detection_sigma: float):
         # the separation: views that end on the surface (no zodiacal light there, surface not
         # modelled) or whose dust and zodiacal templates are degenerate come back NaN and are
         # left out, exactly as `dustrt separate` and `dustrt limit` leave them out.
-        x = design_matrix(b.zodiacal_radiance, dust, wl, sep.free_colour_slope)  # (L, K, B)
+        x = design_matrix(b.zodiacal_radiance, dust, wl, sep.colour_order)  # (L, K, B)
         return fit_spectra(np.zeros(x.shape[:1] + x.shape[-1:]), np.where(use, sigma, 1.0), x,
                            use & ~hits[:, None], nonnegative=False)[1]
 
     if sep.joint_fit:  # every population's amplitude profiled over the others'
         k0 = zodiacal_parameter_count(scenario)
         joint_cov = joint_fit_spectra(np.zeros(b.zodiacal_radiance.shape), np.where(use, sigma, 1.0),
-                                      b.zodiacal_radiance, b.population_radiance, wl, sep.free_colour_slope,
+                                      b.zodiacal_radiance, b.population_radiance, wl, sep.colour_order,
                                       use & ~hits[:, None], nonnegative=False)[1]
     for p, pop in enumerate(scenario.populations):
         dust = b.population_radiance[p]  # (L, B) at the hypothesised density
