@@ -110,7 +110,9 @@ def _cmd_limit(args) -> int:
             lo, up = float(sel["density_lower_limit_cm3"]), float(sel["density_upper_limit_cm3"])
             what = (f"interval [{lo:.3g}, {up:.3g}]" if int(sel["two_sided"]) else f"upper limit {up:.3g}")
             flag = "" if int(sel["fit_reliable"]) else "  (model does not fit the data: unreliable)"
-            _say(args, f"{p}, {word} {float(sel['radius_um']):.3g} um: {what} cm-3 at "
+            swept = "".join(f", {sel[c].attrs['sweep_key']} = {float(sel[c]):g}" for c in sel.coords
+                            if "sweep_key" in sel[c].attrs)
+            _say(args, f"{p}, {word} {float(sel['radius_um']):.3g} um{swept}: {what} cm-3 at "
                        f"{ds.attrs['confidence']:g} CL, excess {float(sel['dust_excess_significance']):.2f} sigma{flag}")
     return _finish(args, ds, "limits_figure")
 

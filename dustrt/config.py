@@ -675,10 +675,14 @@ def _population(t: _Table) -> Population:
     with t.problems.guard():
         parts["size"] = _size(t.subtable("size", required=True))
     parts["density"] = None
+    density_ok = False
     with t.problems.guard():
         dt = t.subtable("density")
         if dt is not None:
             parts["density"] = _density(dt)
+        density_ok = True
+    if not density_ok:  # a bad density table makes the population bad too
+        t.bad = True
     t.finish("name, material, size, density")
     if len(parts) < 3:
         raise _Reported

@@ -194,7 +194,9 @@ class Instrument:
         Relative 1σ error of the radiometric calibration per bin (flat field,
         spectral response), in [0, 0.5].  Treated as noise uncorrelated between
         bins and realisations, σ_cal = f·(S + B) electrons, added in quadrature
-        (common practice for a calibration floor).  Default 0.
+        (common practice for a calibration floor; a real flat-field error is fixed
+        for the instrument, so simulated realisations overstate its scatter between
+        them while the per-spectrum uncertainty is right).  Default 0.
 
     Attributes
     ----------
@@ -810,15 +812,19 @@ def simulate_noisy(
         if not np.all(np.isfinite(arr)) or np.any(arr < 0.0):
             raise ValueError(f"{name} must be finite and >= 0 [e⁻]")
         arrays.append(arr)
-    signal, background, dark, read = np.broadcast_arrays(*arrays)
+    cal = np.asarray(calibration_e, dtype=float)
+    if not np.all(np.isfinite(cal)) or np.any(cal < 0.0):
+        raise ValueError("calibration_e must be finite and >= 0 [e⁻]")
+    try:
+        signal, background, dark, read, cal = np.broadcast_arrays(*arrays, cal)
+    except ValueError:
+        raise ValueError("expected_signal_e, background_e, dark_e, read_noise_total_e and calibration_e must "
+                         "broadcast together") from None
     shape = signal.shape
     if n_realisations is not None:
         if isinstance(n_realisations, bool) or not isinstance(n_realisations, (int, np.integer)) or n_realisations < 1:
             raise ValueError(f"n_realisations must be an integer >= 1, got {n_realisations!r}")
         shape = (int(n_realisations),) + shape
-    cal = np.broadcast_to(np.asarray(calibration_e, dtype=float), signal.shape)
-    if not np.all(np.isfinite(cal)) or np.any(cal < 0.0):
-        raise ValueError("calibration_e must be finite and >= 0 [e⁻]")
     collected = rng.poisson(np.broadcast_to(signal + background + dark, shape)).astype(float)
     readout = rng.normal(0.0, 1.0, size=shape) * read
     if np.any(cal > 0):

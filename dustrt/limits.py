@@ -22,6 +22,8 @@ References
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 
 from dustrt.density import reference_density_cm3
@@ -93,12 +95,15 @@ def density_limits(fits, normalisation_cm3, confidence, method):
 
 
 def is_size_key(key: str) -> bool:
-    """Swept keys that change grain sizes: radius_um, or a population's size parameter."""
-    return key == "radius_um" or (key.startswith("population.") and ".size." in key)
+    """Swept keys that change grain sizes: radius_um, or a population's size parameter
+    (population.NAME.size.KEY; NAME may itself be 'size')."""
+    parts = key.split(".")
+    return key == "radius_um" or (len(parts) == 4 and parts[0] == "population" and parts[2] == "size")
 
 
-def size_variants(scenario, command: str) -> list:
-    """The scenario at every point of its [sweep] grid of size keys (itself when there is none).
+def size_variants(scenario, command: str) -> tuple[list, list]:
+    """The scenario at every point of its [sweep] grid of size keys (itself when there is none),
+    and the swept values at each point (dicts, key -> value).
 
     Other swept keys are ignored with a warning.  A common radius_um with a joint fit of several
     populations is refused: it makes their templates (nearly) proportional.
@@ -106,7 +111,7 @@ def size_variants(scenario, command: str) -> list:
     from dustrt.sweep import grid_values, scenario_at
 
     if scenario.sweep is None:
-        return [scenario]
+        return [scenario], [{}]
     axes = [(k, v) for k, v in scenario.sweep.axes if is_size_key(k)]
     other = [k for k, _ in scenario.sweep.axes if not is_size_key(k)]
     if other:
@@ -115,7 +120,7 @@ def size_variants(scenario, command: str) -> list:
         warn(f"{scenario.source}: {command} sweeps only grain sizes (radius_um, population.NAME.size.*); swept "
              f"keys {', '.join(other)} are ignored (their scenario values are used)")
     if not axes:
-        return [scenario]
+        return [scenario], [{}]
     if scenario.separation.joint_fit and len(scenario.populations) > 1 and any(k == "radius_um" for k, _ in axes):
         raise ValueError(f"{scenario.source}: key 'sweep.radius_um': gives every population the same radius, which "
                          "makes a joint fit degenerate; sweep 'population.NAME.size.radius_um' (or "
@@ -123,7 +128,9 @@ def size_variants(scenario, command: str) -> list:
     spec = {"raw": scenario.raw, "source": scenario.source, "base_dir": str(scenario.base_dir),
             "text": scenario.text, "axes": axes}
     n = int(np.prod([len(v) for _, v in axes]))
-    return [scenario_at(spec, grid_values(axes, i)) for i in range(n)]
+    values = [grid_values(axes, i) for i in range(n)]
+    # size keys change only the populations: keep every other setting of the scenario given
+    return [dataclasses.replace(scenario, populations=scenario_at(spec, v).populations) for v in values], values
 
 
 def limits_file(observation_path, scenario, method=None, progress=False):
@@ -133,6 +140,7 @@ def limits_file(observation_path, scenario, method=None, progress=False):
     import dustrt
     from dustrt.separate import (build_templates, check_bands, check_hypotheses, fit_quality, read_observation,
                                  separate, warn_poor_fits)
+    from dustrt.sweep import dimension_name
 
     method = method or scenario.limits.method
     conf = scenario.limits.confidence
@@ -141,7 +149,7 @@ def limits_file(observation_path, scenario, method=None, progress=False):
     check_hypotheses(scenario, "dustrt limit")
     spectra = read_observation(observation_path, scenario)
     check_bands(scenario, spectra.wavelength_nm, spectra.source)
-    variants = size_variants(scenario, "dustrt limit")
+    variants, swept = size_variants(scenario, "dustrt limit")
     results = []
     it = variants
     if progress and len(variants) > 1:
@@ -199,6 +207,9 @@ def limits_file(observation_path, scenario, method=None, progress=False):
             "hypothesis_density_cm3": ("population", np.array(n0_all),
                                        {"units": "cm-3", "long_name": "the hypothesis's density normalisation "
                                         "(what the limits are compared with)"}),
+            **{dimension_name(key): ("grain_radius", np.array([v[key] for v in swept]),
+                                     {"long_name": f"swept scenario key {key}", "sweep_key": key})
+               for key in swept[0] if key != "radius_um"},
             "radius_um": (("population", "grain_radius"), radius,
                           {"units": "um", "long_name": "grain radius: monodisperse radius, lognormal median, or a "
                                                        "power law's lower bound"}),

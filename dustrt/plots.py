@@ -110,8 +110,8 @@ def limits_figure(ds):
 def separation_figure(ds, population=0, observation=0):
     """Data, fitted zodiacal and dust components, and residuals for a few lines of sight.
 
-    A joint fit shows every population's dust and the residual against their sum; otherwise
-    the one hypothesis ``population``.
+    A joint fit shows every population's dust and the residual against their sum (``population``
+    is then not used); otherwise the one hypothesis ``population``.
     """
     plt = _plt()
     fig, (ax1, ax2) = plt.subplots(2, 1, figsize=(10, 6), sharex=True, gridspec_kw={"height_ratios": [3, 1]})
@@ -127,13 +127,13 @@ def separation_figure(ds, population=0, observation=0):
         color = line.get_color()
         zod = s["zodiacal_fit_radiance"].isel(population=pops[0])  # one zodiacal fit (shared when joint)
         ax1.semilogy(wl, zod, ls=":", lw=1.2, color=color, label="zodiacal fit")
-        model = zod.copy()
-        for q, style in zip(pops, ("--", "-.", (0, (1, 1)), (0, (5, 1, 1, 1)))):
+        styles = ("--", "-.", (0, (1, 1)), (0, (5, 1, 1, 1)))
+        for j, q in enumerate(pops):
             dust = s["dust_excess_radiance"].isel(population=q)
             name = ds["population"].values[q]
-            ax1.semilogy(wl, dust, ls=style, color=color,
+            ax1.semilogy(wl, dust, ls=styles[j % len(styles)], color=color, lw=1.0 + 0.5 * (j // len(styles)),
                          label=f"dust fit {name}" + ("" if np.any(dust.values > 0) else " (zero: not drawn)"))
-            model = model + dust
+        model = zod + s["dust_excess_radiance"].isel(population=pops).sum("population")
         ax2.plot(wl, (s["observed_radiance"] - model) / s["observed_uncertainty"], lw=0.8, color=color)
     ax1.set_ylabel("spectral radiance [W m⁻² sr⁻¹ nm⁻¹]")
     ax1.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0))  # beside: never on the spectra

@@ -617,7 +617,7 @@ def separate_file(observation_path, scenario, progress=False):
         attrs={"title": "dustrt dust/zodiacal-light separation", "dustrt_version": dustrt.__version__,
                "observation_file": str(observation_path), "scenario": scenario.text,
                "blue_band_nm": list(blue), "red_band_nm": list(red),
-               "masked_windows_nm": str(list(sep.mask_nm)), "free_colour_slope": int(sep.free_colour_slope),
+               "masked_windows_nm": str(list(sep.mask_nm)), "free_colour_slope": int(sep.colour_order >= 1),
                "zodiacal_colour_order": sep.colour_order,
                "joint_fit": int(sep.joint_fit),
                "ignored_nan_bins": spectra.n_nan, "ignored_masked_bins": spectra.n_file_masked,

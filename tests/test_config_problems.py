@@ -226,7 +226,8 @@ def test_joint_fit_rules(tmp_path, capsys):
                            '"population.other.size.radius_um" = [0.2, 0.3]').replace(
         '"instrument.integration_time_s" = [1.0, 10.0, 100.0]', "")
     path.write_text(per_pop.replace("[background]", second + "\n[background]"))
-    variants = size_variants(load_scenario(path), "dustrt limit")
+    variants, swept = size_variants(load_scenario(path), "dustrt limit")
+    assert swept == [{"population.other.size.radius_um": 0.2}, {"population.other.size.radius_um": 0.3}]
     assert [v.population("other").size.radius_um for v in variants] == [0.2, 0.3]
     assert all(v.population("lofted").size.radius_um == 0.1 for v in variants)
     many = "".join(second.replace('"other"', f'"p{i}"') for i in range(8))
@@ -252,3 +253,19 @@ def test_checks_across_tables_run_on_the_valid_tables(tmp_path):
     keys = " ".join(info.value.problems)
     assert "key 'instrument.frames'" in keys and "key 'population[0].material'" in keys
     assert "key 'sun.spectrum'" in keys and "instrument.wavelength_min_nm" not in keys
+
+
+def test_size_key_sweeps_keep_the_scenario_and_label_their_values(tmp_path):
+    import dataclasses
+
+    from dustrt.limits import is_size_key, size_variants
+
+    assert is_size_key("radius_um") and is_size_key("population.fine.size.sigma_g")
+    assert is_size_key("population.size.size.radius_um")  # a population may be called "size"
+    assert not is_size_key("population.size.density.scale_height_km")
+    demo = load_scenario("demo")
+    changed = dataclasses.replace(demo, separation=dataclasses.replace(demo.separation, zodiacal_colour_order=3),
+                                  limits=dataclasses.replace(demo.limits, confidence=0.9))
+    variants, swept = size_variants(changed, "dustrt limit")
+    assert all(v.separation.colour_order == 3 and v.limits.confidence == 0.9 for v in variants)
+    assert [v.populations[0].size.median_radius_um for v in variants] == [s["radius_um"] for s in swept]

@@ -538,3 +538,17 @@ def test_zodiacal_colour_curvature_absorbed_by_a_second_order_term(tmp_path):
     assert abs(pulls["order2"].mean()) < 4 / np.sqrt(n)
     assert abs(pulls["order2"].std() - 1) < 4 / np.sqrt(2 * n)
     assert abs(pulls["slope"].mean()) > 10 / np.sqrt(n)  # the slope alone cannot take the curvature
+
+
+def test_limit_over_a_population_size_key_is_labelled(tmp_path, capsys):
+    _, obs, hyp_path = _separate(tmp_path, "0.0", 2, seed=4)
+    text = hyp_path.read_text() + '\n[sweep]\n"population.fine.size.radius_um" = [0.05, 0.08]\n'
+    hyp_path.write_text(text)
+    out = tmp_path / "lim_size.nc"
+    assert main(["limit", str(obs), "--scenario", str(hyp_path), "-o", str(out)]) == 0
+    err = capsys.readouterr().err
+    assert "fine, radius 0.05 um, population.fine.size.radius_um = 0.05:" in err
+    ds = xr.open_dataset(out, engine="h5netcdf")
+    np.testing.assert_array_equal(ds["population__fine__size__radius_um"].values, [0.05, 0.08])
+    np.testing.assert_array_equal(ds["radius_um"].values[0], [0.05, 0.08])
+    ds.close()
