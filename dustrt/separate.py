@@ -464,15 +464,30 @@ def separate(scenario, spectra: ObservedSpectra, templates: Templates | None = N
                                                             sep.colour_order, use)
         k0 = len(zod_names)
         names = zod_names + tuple(f"dust_amplitude_{p.name}" for p in scenario.populations)
-        return [SeparationFit(amplitudes=a, covariance=cov, amplitudes_nonneg=a_nn, chi2=chi2, dof=dof,
+        fits = [SeparationFit(amplitudes=a, covariance=cov, amplitudes_nonneg=a_nn, chi2=chi2, dof=dof,
                               n_used=n_used, parameter_names=names, dust_index=k0 + p) for p in range(n_pop)]
+        _warn_degenerate(scenario, spectra, fits, limb_view)
+        return fits
     for p in range(n_pop):
         dust = templates.dust_per_unit[p][templates.ray_index]
         x = design_matrix(zod, dust, spectra.wavelength_nm, sep.colour_order)
         a, cov, a_nn, res = fit_spectra(data, sigma, x, use)
         fits.append(SeparationFit(amplitudes=a, covariance=cov, amplitudes_nonneg=a_nn, chi2=res.chi2,
                                   dof=res.dof, n_used=res.n_used, parameter_names=zod_names + ("dust_amplitude",)))
+    _warn_degenerate(scenario, spectra, fits, limb_view)
     return fits
+
+
+def _warn_degenerate(scenario, spectra, fits, limb_view) -> None:
+    """One warning when most limb views could not be fitted (their results are NaN)."""
+    names = [p.name for p, f in zip(scenario.populations, fits)
+             if np.mean(~np.isfinite(f.dust_sigma[limb_view])) > 0.5] if limb_view.any() else []
+    if names:
+        from dustrt import warn
+
+        warn(f"{spectra.source}: the fit is degenerate (NaN) for most limb views of {', '.join(names)}: its "
+             "templates are nearly collinear on the fit bins (too many zodiacal colour terms for the fit bands, a "
+             "dust template with no light there, or populations with proportional templates)")
 
 
 def band_mean(values, wavelength_nm, band, use=None):
