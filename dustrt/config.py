@@ -507,27 +507,21 @@ def scenario_from_dict(raw: dict, source: str = "<scenario>", base_dir: Path | N
                     populations=tuple(p for _, p in populations), **kwargs)
 
 
-@dataclass
 class _Parts:
-    """The valid tables of a scenario being checked (``bad``: names of tables with problems)."""
+    """The valid tables of a scenario being checked: the values read so far (else the
+    :class:`Scenario` defaults), ``bad`` (names of tables with problems) and the valid
+    populations with their index in the file."""
 
-    raw: dict
-    bad: set
-    populations: list  # [(index in the file, Population)] of the valid populations
-    wavelength_nm: np.ndarray | None = None
-    scattering_angle_deg: np.ndarray | None = None
-    optics_relative_tolerance: float | None = None
-    body_radius_km: float = MOON_RADIUS_KM
-    sun_distance_au: float = 1.0
-    solar_spectrum: str | Path = "builtin"
-    observer: Observer | None = None
-    view: View | None = None
-    integration: Integration | None = None
-    background: Background | None = None
-    instrument: Any = None
-    separation: Separation = Separation()
-    limits: Limits | None = None
-    sweep: Sweep | None = None
+    def __init__(self, raw: dict, bad: set, populations: list, **values):
+        self.raw, self.bad, self.populations, self.values = raw, bad, populations, values
+
+    def __getattr__(self, name):
+        values = self.__dict__.get("values", {})
+        if name in values:
+            return values[name]
+        if name in Scenario.__dataclass_fields__:
+            return Scenario.__dataclass_fields__[name].default
+        raise AttributeError(name)
 
     def valid(self, *tables: str) -> bool:
         return not (set(tables) & self.bad)

@@ -108,7 +108,7 @@ def size_variants(scenario, command: str) -> tuple[list, list]:
     Other swept keys are ignored with a warning.  A common radius_um with a joint fit of several
     populations is refused: it makes their templates (nearly) proportional.
     """
-    from dustrt.sweep import grid_values, scenario_at
+    from dustrt.sweep import grid_values, refuse_common_radius_in_joint_fit, scenario_at
 
     if scenario.sweep is None:
         return [scenario], [{}]
@@ -121,10 +121,7 @@ def size_variants(scenario, command: str) -> tuple[list, list]:
              f"keys {', '.join(other)} are ignored (their scenario values are used)")
     if not axes:
         return [scenario], [{}]
-    if scenario.separation.joint_fit and len(scenario.populations) > 1 and any(k == "radius_um" for k, _ in axes):
-        raise ValueError(f"{scenario.source}: key 'sweep.radius_um': gives every population the same radius, which "
-                         "makes a joint fit degenerate; sweep 'population.NAME.size.radius_um' (or "
-                         "median_radius_um) instead")
+    refuse_common_radius_in_joint_fit(scenario, axes)
     spec = {"raw": scenario.raw, "source": scenario.source, "base_dir": str(scenario.base_dir),
             "text": scenario.text, "axes": axes}
     n = int(np.prod([len(v) for _, v in axes]))

@@ -42,6 +42,15 @@ def dimension_name(key: str) -> str:
     return key.replace(".", "__")
 
 
+def refuse_common_radius_in_joint_fit(scenario, axes) -> None:
+    """A radius_um sweep gives every population the same radius: their templates become (nearly)
+    proportional, which a joint fit cannot separate."""
+    if scenario.separation.joint_fit and len(scenario.populations) > 1 and any(k == "radius_um" for k, _ in axes):
+        raise ValueError(f"{scenario.source}: key 'sweep.radius_um': gives every population the same radius, which "
+                         "makes a joint fit degenerate; sweep 'population.NAME.size.radius_um' (or "
+                         "median_radius_um) instead")
+
+
 def scenario_at(spec, values: dict):
     from dustrt.config import scenario_from_dict, with_values
 
@@ -172,11 +181,7 @@ def run_sweep(scenario, output_path, scheduler=None, workers=None, resume=False,
     from dustrt.chunks import completed_chunks, remove_checkpoints, run_chunked
 
     spec = sweep_spec(scenario)
-    if scenario.separation.joint_fit and len(scenario.populations) > 1 and any(
-            k == "radius_um" for k, _ in spec["axes"]):
-        raise ValueError(f"{scenario.source}: key 'sweep.radius_um': gives every population the same radius, which "
-                         "makes a joint fit degenerate; sweep 'population.NAME.size.radius_um' (or "
-                         "median_radius_um) instead")
+    refuse_common_radius_in_joint_fit(scenario, spec["axes"])
     # validate every grid point's scenario up front (parsing only, ~1 ms each), so a bad
     # swept value or combination fails fast, naming the keys, before any work is done
     from dustrt.separate import check_bands, check_hypotheses
